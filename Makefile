@@ -1,0 +1,28 @@
+VENV ?= .venv
+PY := $(VENV)/bin/python
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test lint bench clean
+
+$(STAMP): pyproject.toml
+	python3 -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(VENV)/bin/landlift demo
+
+test: $(STAMP)
+	$(VENV)/bin/ruff check app tests benchmarks sample_data
+	$(PY) -m pytest -q
+
+lint: $(STAMP)
+	$(VENV)/bin/ruff check app tests benchmarks sample_data
+	$(VENV)/bin/mypy
+
+bench: $(STAMP)
+	$(PY) benchmarks/bootstrap_floor.py
+
+clean:
+	rm -rf $(VENV) landlift-data

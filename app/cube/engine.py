@@ -1,0 +1,322 @@
+"""The scoring run: options, input checks, the tile-by-tile reduction and the assessment.
+
+:func:`run` opens the inputs (:mod:`app.cube.inputs`), reduces them to an anomaly cube one
+spatial tile at a time (tile size from the memory budget), then assesses the cube
+(:mod:`app.cube.assess`): per-cell maps with field significance, both regional aggregations for
+every requested region, and the gain conditioned on the initial land anomaly. The result layer
+turns the returned :class:`RunOutput` into files and JSON.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from app.cube.assess import (
+    Bootstrap,
+    CellResults,
+    Cube,
+    Estimate,
+    assess_cells,
+    estimate_series,
+    estimate_strata,
+    region_series,
+    significant_cells,
+)
+from app.cube.inputs import Prepared, prepare, reduce_tile
+from app.cube.regions import ALL, Region, region_weights, resolve_region
+from app.cube.windows import LeadWindow, windows_from_dicts
+from app.errors import ParameterError
+from app.stats.intervals import INTERVAL_METHODS
+from app.stats.resample import year_block_counts
+
+MAX_RESAMPLES = 10_000
+DEFAULT_MEMORY_BUDGET = 1 << 30
+Progress = Callable[[float, str], None]
+
+
+@dataclass
+class ScoreOptions:
+    """Everything that decides the numbers of a run besides the input files."""
+
+    variable: str | None = None
+    lead_windows: list[dict[str, Any]] | None = None
+    regions: list[Any] | None = None
+    resamples: int = 1000
+    seed: int = 1234
+    confidence: float = 0.95
+    interval: str = "expanded"
+    fdr_alpha: float = 0.10
+    equalize_members: bool = False
+    memory_budget: int | None = None
+    leave_one_out: bool = True
+
+    def validate(self) -> ScoreOptions:
+        if not isinstance(self.resamples, int) or not 1 <= self.resamples <= MAX_RESAMPLES:
+            raise ParameterError(f"resamples must be an integer in 1..{MAX_RESAMPLES}, got {self.resamples!r}")
+        if not 0.5 <= float(self.confidence) < 1.0:
+            raise ParameterError(f"confidence must lie in [0.5, 1), got {self.confidence!r}")
+        if self.interval not in INTERVAL_METHODS:
+            raise ParameterError(f"unknown interval method {self.interval!r}; choose one of {', '.join(INTERVAL_METHODS)}")
+        if not 0.0 < float(self.fdr_alpha) < 1.0:
+            raise ParameterError(f"fdr_alpha must lie strictly between 0 and 1, got {self.fdr_alpha!r}")
+        if self.memory_budget is not None and self.memory_budget < 16 * 2**20:
+            raise ParameterError(f"memory budget must be at least 16MiB, got {self.memory_budget} bytes")
+        windows_from_dicts(self.lead_windows)
+        for spec in self.regions or []:
+            resolve_region(spec)
+        return self
+
+    def windows(self) -> list[LeadWindow] | None:
+        return windows_from_dicts(self.lead_windows)
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> ScoreOptions:
+        known = set(cls.__dataclass_fields__)
+        unknown = sorted(set(data) - known)
+        if unknown:
+            raise ParameterError(f"unknown option(s) {unknown}; valid options: {sorted(known)}")
+        return cls(**data)
+
+
+_SIZE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([KMGT]i?B?|B)?\s*$", re.IGNORECASE)
+
+
+def parse_memory_budget(text: str | int | None) -> int | None:
+    """``"512MiB"``, ``"2GiB"``, ``"1.5GB"`` or a byte count -> bytes (binary multiples)."""
+    if text is None or isinstance(text, int):
+        return text
+    m = _SIZE.match(text)
+    if not m:
+        raise ParameterError(f"memory budget {text!r} is not a size such as '512MiB' or '2GiB'")
+    unit = (m[2] or "B").upper().rstrip("B").rstrip("I")
+    scale = {"": 1, "K": 2**10, "M": 2**20, "G": 2**30, "T": 2**40}[unit]
+    return int(float(m[1]) * scale)
+
+
+def check_inputs(
+    realistic: str | Path,
+    scrambled: str | Path,
+    observations: str | Path,
+    land_state: str | Path | None = None,
+    *,
+    variable: str | None = None,
+    lead_windows: list[dict[str, Any]] | None = None,
+) -> dict[str, Any]:
+    """Open and cross-check the inputs without scoring; the layout summary, or InputError."""
+    prep = prepare(
+        realistic, scrambled, observations, land_state, variable=variable, windows=windows_from_dicts(lead_windows)
+    )
+    try:
+        return prep.summary()
+    finally:
+        prep.close()
+
+
+@dataclass
+class RunOutput:
+    """Everything a run computed, as arrays and metadata (the result layer formats it)."""
+
+    options: ScoreOptions
+    summary: dict[str, Any]
+    windows: list[LeadWindow]
+    lat: NDArray[np.float64]
+    lon: NDArray[np.float64]
+    years: NDArray[np.int64]
+    slots: list[str]
+    cube: Cube
+    cells: CellResults
+    significant: NDArray[np.bool_]
+    regions: list[Region]
+    series: list[Estimate]  # acc_of_region_mean per region
+    strata: list[dict[str, tuple[Estimate, float]]] | None  # per region
+    counts: NDArray[np.float64] = field(repr=False)
+    region_masks: NDArray[np.float64] = field(repr=False)
+
+
+def tile_rows(prep: Prepared, *, budget: int) -> int:
+    """Latitude rows per tile so that one tile's working set stays within ``budget`` bytes."""
+    n_init = prep.init_dates.size
+    n_lead = max(int(prep.realistic.lead_days.size if prep.realistic.lead_days is not None else 1), 1)
+    n_mem = max(int(prep.realistic.members or 1), int(prep.scrambled.members or 1))
+    n_time = int(prep.observations.dates.size if prep.observations.dates is not None else 1)
+    # raw float64 tile of one hindcast plus its member-mean temporaries, both hindcasts,
+    # the observations and their cumulative sums, with a factor 2 of headroom
+    per_cell = 8 * (2 * n_init * n_mem * n_lead * 2 + 4 * n_time + 16 * n_init * len(prep.windows))
+    cells = max(1, budget // (2 * per_cell))
+    return int(max(1, min(prep.lat.size, cells // max(1, prep.lon.size))))
+
+
+def run(
+    realistic: str | Path,
+    scrambled: str | Path,
+    observations: str | Path,
+    land_state: str | Path | None = None,
+    *,
+    options: ScoreOptions,
+    progress: Progress | None = None,
+) -> RunOutput:
+    """Score a hindcast pair (see module docstring). Deterministic for a given seed."""
+    options.validate()
+    report = progress or (lambda fraction, message: None)
+    prep = prepare(
+        realistic,
+        scrambled,
+        observations,
+        land_state,
+        variable=options.variable,
+        windows=options.windows(),
+        equalize_members=options.equalize_members,
+        seed=options.seed,
+    )
+    try:
+        cube = _reduce(prep, options=options, report=report)
+    finally:
+        prep.close()
+    return assess(cube, prep, options=options, report=report)
+
+
+def _reduce(prep: Prepared, *, options: ScoreOptions, report: Progress) -> Cube:
+    Y, S, W = prep.years.size, len(prep.slots), len(prep.windows)
+    n_lat, n_lon = prep.lat.size, prep.lon.size
+    fields = {k: np.full((Y, S, W, n_lat * n_lon), np.nan) for k in ("x1", "x2", "y")}
+    land = np.full((Y, S, n_lat * n_lon), np.nan) if prep.land_state is not None else None
+    rows = tile_rows(prep, budget=options.memory_budget or DEFAULT_MEMORY_BUDGET)
+    for i in range(0, n_lat, rows):
+        tile = reduce_tile(prep, lat=slice(i, i + rows), lon=slice(None), leave_one_out=options.leave_one_out)
+        cells = slice(i * n_lon, min(n_lat, i + rows) * n_lon)
+        fields["x1"][..., cells] = tile.realistic
+        fields["x2"][..., cells] = tile.scrambled
+        fields["y"][..., cells] = tile.observed
+        if land is not None and tile.land is not None:
+            land[..., cells] = tile.land
+        report(0.5 * min(1.0, (i + rows) / n_lat), f"reduced {min(n_lat, i + rows)}/{n_lat} latitude rows")
+    _check_has_data(prep, fields["x1"], fields["x2"], fields["y"])
+    return Cube(realistic=fields["x1"], scrambled=fields["x2"], observed=fields["y"], land=land)
+
+
+def _check_has_data(prep: Prepared, x1: NDArray[np.float64], x2: NDArray[np.float64], y: NDArray[np.float64]) -> None:
+    from app.errors import InputError
+
+    for src, values in ((prep.realistic, x1), (prep.scrambled, x2), (prep.observations, y)):
+        if not np.isfinite(values).any():
+            raise InputError(
+                "gives no finite anomaly on the scored start dates and windows (all NaN, or too few years per start slot)",
+                file=src.name,
+                variable=src.variable,
+            )
+
+
+def assess(cube: Cube, prep: Prepared | None = None, *, options: ScoreOptions, report: Progress | None = None,
+           lat: NDArray[np.float64] | None = None, lon: NDArray[np.float64] | None = None,
+           windows: list[LeadWindow] | None = None, summary: dict[str, Any] | None = None,
+           years: NDArray[np.int64] | None = None, slots: list[str] | None = None) -> RunOutput:
+    """Maps, regional curves and conditional gain of an anomaly cube."""
+    report = report or (lambda fraction, message: None)
+    if prep is not None:
+        lat, lon, windows, summary = prep.lat, prep.lon, prep.windows, prep.summary()
+        years, slots = prep.years, prep.slots
+    assert lat is not None and lon is not None and windows is not None and summary is not None
+    assert years is not None and slots is not None
+    regions = [ALL] + [r for r in (resolve_region(s) for s in options.regions or []) if r.id != "all"]
+    weights = region_weights(regions, lat, lon)
+    counts = year_block_counts(cube.n_years, resamples=options.resamples, seed=options.seed)
+    boot = Bootstrap(counts=counts, confidence=options.confidence, method=options.interval)  # type: ignore[arg-type]
+    cells = assess_cells(cube, boot, weights, progress=lambda f: report(0.5 + 0.45 * f, "bootstrap over cells"))
+    significant = significant_cells(cells.p_value, alpha=options.fdr_alpha)
+    x1r, x2r, yr, zr = region_series(cube, weights)
+    series = [estimate_series(x1r[k], x2r[k], yr[k], boot) for k in range(len(regions))]
+    strata = None
+    if zr is not None:
+        strata = [estimate_strata(x1r[k], x2r[k], yr[k], zr[k], boot) for k in range(len(regions))]
+    report(1.0, "assessed")
+    return RunOutput(
+        options=options,
+        summary=summary,
+        windows=windows,
+        lat=lat,
+        lon=lon,
+        years=years,
+        slots=slots,
+        cube=cube,
+        cells=cells,
+        significant=significant,
+        regions=regions,
+        series=series,
+        strata=strata,
+        counts=counts,
+        region_masks=weights,
+    )
+
+
+@dataclass
+class RegionAssessment:
+    """Both aggregations (and the strata, with a land state) of one region."""
+
+    region: Region
+    series: Estimate
+    mean_of_acc: Estimate
+    fraction_significant: NDArray[np.float64]
+    strata: dict[str, tuple[Estimate, float]] | None
+
+
+def assess_region(
+    cube: Cube,
+    region: str | dict[str, Any] | Region,
+    *,
+    lat: NDArray[np.float64],
+    lon: NDArray[np.float64],
+    options: ScoreOptions,
+    significant: NDArray[np.bool_] | None = None,
+) -> RegionAssessment:
+    """One region of an already reduced cube, with the run's own resampled years (same seed)."""
+    reg = region if isinstance(region, Region) else resolve_region(region)
+    weights = region_weights([reg], lat, lon)
+    counts = year_block_counts(cube.n_years, resamples=options.resamples, seed=options.seed)
+    boot = Bootstrap(counts=counts, confidence=options.confidence, method=options.interval)  # type: ignore[arg-type]
+    cells = assess_cells(cube, boot, weights)
+    x1r, x2r, yr, zr = region_series(cube, weights)
+    strata = estimate_strata(x1r[0], x2r[0], yr[0], zr[0], boot) if zr is not None else None
+    return RegionAssessment(
+        region=reg,
+        series=estimate_series(x1r[0], x2r[0], yr[0], boot),
+        mean_of_acc=cells.region_mean[0],
+        fraction_significant=fraction_significant(significant, cells.n_samples, weights[0])
+        if significant is not None
+        else np.full(cube.n_windows, np.nan),
+        strata=strata,
+    )
+
+
+def fraction_significant(
+    significant: NDArray[np.bool_], n_samples: NDArray[np.float64], weights: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Per window: the fraction of the region's cells with data whose gain is FDR-significant."""
+    inside = (weights > 0)[None, :] & (n_samples > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return (significant & inside).sum(axis=1) / inside.sum(axis=1)
+
+
+def region_assessments(out: RunOutput) -> list[RegionAssessment]:
+    """The per-region view of a finished run (no recomputation)."""
+    items = []
+    for k, reg in enumerate(out.regions):
+        items.append(
+            RegionAssessment(
+                region=reg,
+                series=out.series[k],
+                mean_of_acc=out.cells.region_mean[k],
+                fraction_significant=fraction_significant(out.significant, out.cells.n_samples, out.region_masks[k]),
+                strata=out.strata[k] if out.strata is not None else None,
+            )
+        )
+    return items
