@@ -103,9 +103,7 @@ def cmd_score(args: argparse.Namespace) -> int:
     from app.results.tables import curve_table
 
     options = _options(args)
-    scheduler = args.scheduler or os.environ.get("LANDLIFT_DASK_SCHEDULER")
-    if scheduler:
-        print(f"landlift: note: dask scheduler {scheduler} given; this build scores on the local machine", file=sys.stderr)
+    scheduler = args.scheduler or os.environ.get("LANDLIFT_DASK_SCHEDULER") or None
     result = score(
         args.realistic,
         args.scrambled,
@@ -114,6 +112,7 @@ def cmd_score(args: argparse.Namespace) -> int:
         options=options,
         experiment=args.name,
         progress=_progress_bar(sys.stderr.isatty()),
+        scheduler=scheduler,
     )
     paths = write_outputs(result, Path(args.out))
     print(curve_table(result.curve()))

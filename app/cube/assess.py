@@ -8,6 +8,7 @@ and stratum of a run, so that all intervals come from the same resampled years.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -121,64 +122,86 @@ class CellResults:
         return self.acc_realistic - self.acc_scrambled
 
 
-def assess_cells(
-    cube: Cube,
+@dataclass
+class BlockStats:
+    """What one block of cells contributes: its map values and its Fisher-z region sums."""
+
+    cells: NDArray[np.int64]
+    maps: dict[str, FloatArray]  # each (n_windows, n_block_cells)
+    z_point: FloatArray  # (2, R, W)
+    w_point: FloatArray
+    z_draws: FloatArray  # (2, R, B, W)
+    w_draws: FloatArray
+
+
+MAP_KEYS = ("r1", "r2", "low", "high", "p", "n", "ny")
+
+
+def block_stats(
+    realistic: FloatArray,
+    scrambled: FloatArray,
+    observed: FloatArray,
+    cells: NDArray[np.int64],
     boot: Bootstrap,
     weights: FloatArray,
-    *,
-    block_cells: int = 512,
-    progress: Callable[[float], None] | None = None,
-) -> CellResults:
-    """Bootstrap every cell once; return maps and the region means of the cell ACCs.
-
-    ``weights`` is ``(n_regions, n_cells)``: cos(lat) inside each region. The region mean of ACC
-    is the weighted mean of the cell ACCs in Fisher z space, transformed back, for the point value
-    and for each resample alike (its interval comes from the same resampled years).
-    """
-    W, C, B = cube.n_windows, cube.n_cells, boot.resamples
+) -> BlockStats:
+    """Bootstrap one block of cells: anomalies ``(Y, S, W, m)``, ``weights`` ``(R, m)``."""
+    W, m, B = realistic.shape[2], realistic.shape[3], boot.resamples
+    yearly = yearly_sums(realistic, scrambled, observed)  # (Y, 9, W, m)
+    flat = yearly.reshape(yearly.shape[0], yearly.shape[1], W * m)
+    totals = total_sums(flat)
+    r1, r2 = correlations_from_sums(totals)
+    d1, d2 = resampled_correlations(flat, boot.counts)
+    gain_iv = boot.interval(d1 - d2)
+    maps = {
+        "r1": r1.reshape(W, m),
+        "r2": r2.reshape(W, m),
+        "low": gain_iv.low.reshape(W, m),
+        "high": gain_iv.high.reshape(W, m),
+        "p": gain_iv.p_value.reshape(W, m),
+        "n": totals[0].reshape(W, m),
+        "ny": (flat[:, 0] > 0).sum(axis=0).reshape(W, m).astype(np.float64),
+    }
     R = weights.shape[0]
-    maps = {k: np.full((W, C), np.nan) for k in ("r1", "r2", "low", "high", "p", "n", "ny")}
-    z_point = np.zeros((2, R, W))
-    w_point = np.zeros((2, R, W))
-    z_draws = np.zeros((2, R, B, W))
-    w_draws = np.zeros((2, R, B, W))
-    wanted = np.flatnonzero(weights.sum(axis=0) > 0) if R else np.arange(C)
-    for start in range(0, wanted.size, block_cells):
-        cells = wanted[start : start + block_cells]
-        m = cells.size
-        yearly = yearly_sums(
-            cube.realistic[..., cells], cube.scrambled[..., cells], cube.observed[..., cells]
-        )  # (Y, 9, W, m)
-        flat = yearly.reshape(yearly.shape[0], yearly.shape[1], W * m)
-        r1, r2 = correlations_from_sums(total_sums(flat))
-        d1, d2 = resampled_correlations(flat, boot.counts)
-        gain_iv = boot.interval(d1 - d2)
-        maps["r1"][:, cells] = r1.reshape(W, m)
-        maps["r2"][:, cells] = r2.reshape(W, m)
-        maps["low"][:, cells] = gain_iv.low.reshape(W, m)
-        maps["high"][:, cells] = gain_iv.high.reshape(W, m)
-        maps["p"][:, cells] = gain_iv.p_value.reshape(W, m)
-        maps["n"][:, cells] = total_sums(flat)[0].reshape(W, m)
-        maps["ny"][:, cells] = (flat[:, 0] > 0).sum(axis=0).reshape(W, m)
-        w = weights[:, cells]
-        for e, (pt, dr) in enumerate(((r1, d1), (r2, d2))):
-            num, den = weighted_sums(_fisher_z(pt).reshape(W, m), w)
-            z_point[e] += num
-            w_point[e] += den
-            num, den = weighted_sums(_fisher_z(dr).reshape(B, W, m), w)
-            z_draws[e] += num
-            w_draws[e] += den
-        if progress is not None:
-            progress(min(1.0, (start + m) / max(1, wanted.size)))
+    z_point, w_point = np.zeros((2, R, W)), np.zeros((2, R, W))
+    z_draws, w_draws = np.zeros((2, R, B, W)), np.zeros((2, R, B, W))
+    for e, (pt, dr) in enumerate(((r1, d1), (r2, d2))):
+        z_point[e], w_point[e] = weighted_sums(_fisher_z(pt).reshape(W, m), weights)
+        z_draws[e], w_draws[e] = weighted_sums(_fisher_z(dr).reshape(B, W, m), weights)
+    return BlockStats(np.asarray(cells), maps, z_point, w_point, z_draws, w_draws)
+
+
+def cell_blocks(weights: FloatArray, n_cells: int, *, block_cells: int) -> list[NDArray[np.int64]]:
+    """The cells to bootstrap (those inside some region), in blocks."""
+    wanted = np.flatnonzero(weights.sum(axis=0) > 0) if weights.shape[0] else np.arange(n_cells)
+    return [wanted[i : i + block_cells] for i in range(0, wanted.size, block_cells)]
+
+
+def combine_blocks(
+    blocks: list[BlockStats], boot: Bootstrap, weights: FloatArray, *, n_windows: int, n_cells: int
+) -> CellResults:
+    """Maps and region means of ACC from all blocks (the order of blocks does not matter)."""
+    W, B, R = n_windows, boot.resamples, weights.shape[0]
+    maps = {k: np.full((W, n_cells), np.nan) for k in MAP_KEYS}
+    z_point, w_point = np.zeros((2, R, W)), np.zeros((2, R, W))
+    z_draws, w_draws = np.zeros((2, R, B, W)), np.zeros((2, R, B, W))
+    for blk in sorted(blocks, key=lambda b: int(b.cells[0]) if b.cells.size else -1):
+        for k in MAP_KEYS:
+            maps[k][:, blk.cells] = blk.maps[k]
+        z_point += blk.z_point
+        w_point += blk.w_point
+        z_draws += blk.z_draws
+        w_draws += blk.w_draws
     with np.errstate(invalid="ignore", divide="ignore"):
         acc_pt = np.tanh(z_point / w_point)  # (2, R, W)
         acc_dr = np.tanh(z_draws / w_draws)  # (2, R, B, W)
     inside = weights[:, None, :] > 0
-    with np.errstate(invalid="ignore"):
-        n_max = np.nanmax(np.where(inside, maps["n"][None], np.nan), axis=2) if R else None
-        ny_max = np.nanmax(np.where(inside, maps["ny"][None], np.nan), axis=2) if R else None
     regions = []
     for r in range(R):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN slices of empty windows
+            n_max = np.nanmax(np.where(inside[r], maps["n"], np.nan), axis=1)
+            ny_max = np.nanmax(np.where(inside[r], maps["ny"], np.nan), axis=1)
         regions.append(
             Estimate(
                 acc_realistic=acc_pt[0, r],
@@ -186,8 +209,8 @@ def assess_cells(
                 realistic=boot.interval(acc_dr[0, r]),
                 scrambled=boot.interval(acc_dr[1, r]),
                 gain=boot.interval(acc_dr[0, r] - acc_dr[1, r]),
-                n_samples=n_max[r] if n_max is not None else np.zeros(W),
-                n_years=ny_max[r] if ny_max is not None else np.zeros(W),
+                n_samples=n_max,
+                n_years=ny_max,
             )
         )
     return CellResults(
@@ -199,6 +222,34 @@ def assess_cells(
         n_samples=maps["n"],
         region_mean=regions,
     )
+
+
+def assess_cells(
+    cube: Cube,
+    boot: Bootstrap,
+    weights: FloatArray,
+    *,
+    block_cells: int = 512,
+    progress: Callable[[float], None] | None = None,
+) -> CellResults:
+    """Bootstrap every cell once (in blocks, here in this process); maps and region means.
+
+    ``weights`` is ``(n_regions, n_cells)``: cos(lat) inside each region. The region mean of ACC
+    is the weighted mean of the cell ACCs in Fisher z space, transformed back, for the point value
+    and for each resample alike (its interval comes from the same resampled years).
+    """
+    blocks = cell_blocks(weights, cube.n_cells, block_cells=block_cells)
+    done = []
+    for i, cells in enumerate(blocks):
+        done.append(
+            block_stats(
+                cube.realistic[..., cells], cube.scrambled[..., cells], cube.observed[..., cells],
+                cells, boot, weights[:, cells],
+            )
+        )
+        if progress is not None:
+            progress((i + 1) / len(blocks))
+    return combine_blocks(done, boot, weights, n_windows=cube.n_windows, n_cells=cube.n_cells)
 
 
 def _fisher_z(r: FloatArray) -> FloatArray:

@@ -9,7 +9,9 @@ turns the returned :class:`RunOutput` into files and JSON.
 
 from __future__ import annotations
 
+import os
 import re
+import threading
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -19,20 +21,24 @@ import numpy as np
 from numpy.typing import NDArray
 
 from app.cube.assess import (
+    BlockStats,
     Bootstrap,
     CellResults,
     Cube,
     Estimate,
     assess_cells,
+    block_stats,
+    combine_blocks,
     estimate_series,
     estimate_strata,
     region_series,
     significant_cells,
 )
-from app.cube.inputs import Prepared, prepare, reduce_tile
+from app.cube.inputs import Prepared, TileAnomalies, prepare, reduce_tile
+from app.cube.parallel import TaskRunner
 from app.cube.regions import ALL, Region, region_weights, resolve_region
 from app.cube.windows import LeadWindow, windows_from_dicts
-from app.errors import ParameterError
+from app.errors import InputError, ParameterError
 from app.stats.intervals import INTERVAL_METHODS
 from app.stats.resample import year_block_counts
 
@@ -149,11 +155,81 @@ def tile_rows(prep: Prepared, *, budget: int) -> int:
     n_lead = max(int(prep.realistic.lead_days.size if prep.realistic.lead_days is not None else 1), 1)
     n_mem = max(int(prep.realistic.members or 1), int(prep.scrambled.members or 1))
     n_time = int(prep.observations.dates.size if prep.observations.dates is not None else 1)
-    # raw float64 tile of one hindcast plus its member-mean temporaries, both hindcasts,
-    # the observations and their cumulative sums, with a factor 2 of headroom
-    per_cell = 8 * (2 * n_init * n_mem * n_lead * 2 + 4 * n_time + 16 * n_init * len(prep.windows))
+    # one hindcast tile in float64 with its member-mean and window temporaries, the observations
+    # and their cumulative sums, the anomalies of both experiments; a factor 2 of headroom
+    per_cell = 8 * (2 * n_init * n_mem * n_lead + 4 * n_time + 16 * n_init * len(prep.windows))
     cells = max(1, budget // (2 * per_cell))
     return int(max(1, min(prep.lat.size, cells // max(1, prep.lon.size))))
+
+
+@dataclass(frozen=True)
+class InputSpec:
+    """What a worker process needs to open the inputs itself (picklable)."""
+
+    realistic: str
+    scrambled: str
+    observations: str
+    land_state: str | None
+    variable: str | None
+    lead_windows: tuple[tuple[str, int, int], ...] | None
+    equalize_members: bool
+    seed: int
+
+    def open(self) -> Prepared:
+        windows = [LeadWindow(*w) for w in self.lead_windows] if self.lead_windows else None
+        return prepare(
+            self.realistic, self.scrambled, self.observations, self.land_state,
+            variable=self.variable, windows=windows, equalize_members=self.equalize_members, seed=self.seed,
+        )
+
+
+_OPENED: dict[InputSpec, Prepared] = {}
+_OPENED_LOCK = threading.Lock()
+
+
+def _opened(spec: InputSpec) -> Prepared:
+    """The inputs opened once per worker process and kept for its later tasks."""
+    with _OPENED_LOCK:
+        if spec not in _OPENED:
+            while len(_OPENED) >= 4:
+                _OPENED.pop(next(iter(_OPENED))).close()
+            _OPENED[spec] = spec.open()
+        return _OPENED[spec]
+
+
+@dataclass
+class TileOutput:
+    """One tile task's result: its anomalies and its cells' bootstrap contributions."""
+
+    rows: slice
+    anomalies: TileAnomalies
+    blocks: list[BlockStats]
+
+
+def tile_task(
+    source: Prepared | InputSpec,
+    rows: slice,
+    weights: NDArray[np.float64],
+    boot: Bootstrap,
+    leave_one_out: bool,
+    block_cells: int,
+) -> TileOutput:
+    """Reduce one band of latitude rows and bootstrap its cells (runs in any worker)."""
+    prep = source if isinstance(source, Prepared) else _opened(source)
+    tile = reduce_tile(prep, lat=rows, lon=slice(None), leave_one_out=leave_one_out)
+    n_lon = prep.lon.size
+    first = rows.start * n_lon
+    n_cells = tile.realistic.shape[-1]
+    blocks = []
+    for i in range(0, n_cells, block_cells):
+        local = np.arange(i, min(n_cells, i + block_cells))
+        blocks.append(
+            block_stats(
+                tile.realistic[..., local], tile.scrambled[..., local], tile.observed[..., local],
+                first + local, boot, weights[:, first + local],
+            )
+        )
+    return TileOutput(rows=rows, anomalies=tile, blocks=blocks)
 
 
 def run(
@@ -164,50 +240,86 @@ def run(
     *,
     options: ScoreOptions,
     progress: Progress | None = None,
+    scheduler: str | None = None,
+    threads: int | None = None,
 ) -> RunOutput:
-    """Score a hindcast pair (see module docstring). Deterministic for a given seed."""
+    """Score a hindcast pair (see module docstring). Deterministic for a given seed.
+
+    With ``scheduler`` (a dask.distributed address) the tile tasks run on that cluster, each
+    worker opening the files itself; otherwise on a local thread pool.
+    """
     options.validate()
     report = progress or (lambda fraction, message: None)
+    windows = options.windows()
     prep = prepare(
-        realistic,
-        scrambled,
-        observations,
-        land_state,
-        variable=options.variable,
-        windows=options.windows(),
-        equalize_members=options.equalize_members,
-        seed=options.seed,
+        realistic, scrambled, observations, land_state,
+        variable=options.variable, windows=windows,
+        equalize_members=options.equalize_members, seed=options.seed,
     )
     try:
-        cube = _reduce(prep, options=options, report=report)
+        regions = _regions(options)
+        weights = region_weights(regions, prep.lat, prep.lon)
+        counts = year_block_counts(prep.years.size, resamples=options.resamples, seed=options.seed)
+        boot = Bootstrap(counts=counts, confidence=options.confidence, method=options.interval)  # type: ignore[arg-type]
+        with TaskRunner(scheduler, threads=threads or min(2, os.cpu_count() or 1)) as runner:
+            budget = (options.memory_budget or DEFAULT_MEMORY_BUDGET) // (1 if runner.distributed else runner.threads)
+            rows = tile_rows(prep, budget=budget)
+            block = max(1, min(BLOCK_CELLS, budget // max(1, 8 * 8 * options.resamples * len(prep.windows))))
+            source: Prepared | InputSpec = prep
+            if runner.distributed:
+                source = InputSpec(
+                    str(Path(realistic).resolve()), str(Path(scrambled).resolve()),
+                    str(Path(observations).resolve()),
+                    str(Path(land_state).resolve()) if land_state is not None else None,
+                    options.variable,
+                    tuple((w.label, w.first_day, w.last_day) for w in windows) if windows else None,
+                    options.equalize_members, options.seed,
+                )
+            tasks = [
+                (source, slice(i, min(prep.lat.size, i + rows)), weights, boot, options.leave_one_out, block)
+                for i in range(0, prep.lat.size, rows)
+            ]
+            outputs = runner.map(
+                tile_task, tasks,
+                progress=lambda done, total: report(0.95 * done / total, f"{done}/{total} tile tasks done"),
+            )
+        cube = _assemble(prep, outputs)
+        _check_has_data(prep, cube)
+        cells = combine_blocks(
+            [b for o in outputs for b in o.blocks], boot, weights, n_windows=cube.n_windows, n_cells=cube.n_cells
+        )
+        out = _finish(cube, cells, prep.summary(), prep.windows, prep.lat, prep.lon, prep.years, prep.slots,
+                      regions=regions, weights=weights, boot=boot, options=options)
     finally:
         prep.close()
-    return assess(cube, prep, options=options, report=report)
+    report(1.0, "assessed")
+    return out
 
 
-def _reduce(prep: Prepared, *, options: ScoreOptions, report: Progress) -> Cube:
+BLOCK_CELLS = 512
+
+
+def _regions(options: ScoreOptions) -> list[Region]:
+    return [ALL] + [r for r in (resolve_region(s) for s in options.regions or []) if r.id != "all"]
+
+
+def _assemble(prep: Prepared, outputs: list[TileOutput]) -> Cube:
     Y, S, W = prep.years.size, len(prep.slots), len(prep.windows)
-    n_lat, n_lon = prep.lat.size, prep.lon.size
-    fields = {k: np.full((Y, S, W, n_lat * n_lon), np.nan) for k in ("x1", "x2", "y")}
-    land = np.full((Y, S, n_lat * n_lon), np.nan) if prep.land_state is not None else None
-    rows = tile_rows(prep, budget=options.memory_budget or DEFAULT_MEMORY_BUDGET)
-    for i in range(0, n_lat, rows):
-        tile = reduce_tile(prep, lat=slice(i, i + rows), lon=slice(None), leave_one_out=options.leave_one_out)
-        cells = slice(i * n_lon, min(n_lat, i + rows) * n_lon)
-        fields["x1"][..., cells] = tile.realistic
-        fields["x2"][..., cells] = tile.scrambled
-        fields["y"][..., cells] = tile.observed
-        if land is not None and tile.land is not None:
-            land[..., cells] = tile.land
-        report(0.5 * min(1.0, (i + rows) / n_lat), f"reduced {min(n_lat, i + rows)}/{n_lat} latitude rows")
-    _check_has_data(prep, fields["x1"], fields["x2"], fields["y"])
+    n_lon, n_cells = prep.lon.size, prep.n_cells
+    fields = {k: np.full((Y, S, W, n_cells), np.nan) for k in ("x1", "x2", "y")}
+    land = np.full((Y, S, n_cells), np.nan) if prep.land_state is not None else None
+    for out in outputs:
+        cells = slice(out.rows.start * n_lon, out.rows.stop * n_lon)
+        fields["x1"][..., cells] = out.anomalies.realistic
+        fields["x2"][..., cells] = out.anomalies.scrambled
+        fields["y"][..., cells] = out.anomalies.observed
+        if land is not None and out.anomalies.land is not None:
+            land[..., cells] = out.anomalies.land
     return Cube(realistic=fields["x1"], scrambled=fields["x2"], observed=fields["y"], land=land)
 
 
-def _check_has_data(prep: Prepared, x1: NDArray[np.float64], x2: NDArray[np.float64], y: NDArray[np.float64]) -> None:
-    from app.errors import InputError
-
-    for src, values in ((prep.realistic, x1), (prep.scrambled, x2), (prep.observations, y)):
+def _check_has_data(prep: Prepared, cube: Cube) -> None:
+    for src, values in ((prep.realistic, cube.realistic), (prep.scrambled, cube.scrambled), (prep.observations, cube.observed)):
         if not np.isfinite(values).any():
             raise InputError(
                 "gives no finite anomaly on the scored start dates and windows (all NaN, or too few years per start slot)",
@@ -216,45 +328,32 @@ def _check_has_data(prep: Prepared, x1: NDArray[np.float64], x2: NDArray[np.floa
             )
 
 
-def assess(cube: Cube, prep: Prepared | None = None, *, options: ScoreOptions, report: Progress | None = None,
-           lat: NDArray[np.float64] | None = None, lon: NDArray[np.float64] | None = None,
-           windows: list[LeadWindow] | None = None, summary: dict[str, Any] | None = None,
-           years: NDArray[np.int64] | None = None, slots: list[str] | None = None) -> RunOutput:
-    """Maps, regional curves and conditional gain of an anomaly cube."""
-    report = report or (lambda fraction, message: None)
-    if prep is not None:
-        lat, lon, windows, summary = prep.lat, prep.lon, prep.windows, prep.summary()
-        years, slots = prep.years, prep.slots
-    assert lat is not None and lon is not None and windows is not None and summary is not None
-    assert years is not None and slots is not None
-    regions = [ALL] + [r for r in (resolve_region(s) for s in options.regions or []) if r.id != "all"]
-    weights = region_weights(regions, lat, lon)
-    counts = year_block_counts(cube.n_years, resamples=options.resamples, seed=options.seed)
-    boot = Bootstrap(counts=counts, confidence=options.confidence, method=options.interval)  # type: ignore[arg-type]
-    cells = assess_cells(cube, boot, weights, progress=lambda f: report(0.5 + 0.45 * f, "bootstrap over cells"))
+def _finish(
+    cube: Cube,
+    cells: CellResults,
+    summary: dict[str, Any],
+    windows: list[LeadWindow],
+    lat: NDArray[np.float64],
+    lon: NDArray[np.float64],
+    years: NDArray[np.int64],
+    slots: list[str],
+    *,
+    regions: list[Region],
+    weights: NDArray[np.float64],
+    boot: Bootstrap,
+    options: ScoreOptions,
+) -> RunOutput:
+    """Field significance, regional series and strata: the cheap last step of a run."""
     significant = significant_cells(cells.p_value, alpha=options.fdr_alpha)
     x1r, x2r, yr, zr = region_series(cube, weights)
     series = [estimate_series(x1r[k], x2r[k], yr[k], boot) for k in range(len(regions))]
     strata = None
     if zr is not None:
         strata = [estimate_strata(x1r[k], x2r[k], yr[k], zr[k], boot) for k in range(len(regions))]
-    report(1.0, "assessed")
     return RunOutput(
-        options=options,
-        summary=summary,
-        windows=windows,
-        lat=lat,
-        lon=lon,
-        years=years,
-        slots=slots,
-        cube=cube,
-        cells=cells,
-        significant=significant,
-        regions=regions,
-        series=series,
-        strata=strata,
-        counts=counts,
-        region_masks=weights,
+        options=options, summary=summary, windows=windows, lat=lat, lon=lon, years=years, slots=slots,
+        cube=cube, cells=cells, significant=significant, regions=regions, series=series, strata=strata,
+        counts=boot.counts, region_masks=weights,
     )
 
 

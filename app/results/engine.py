@@ -22,13 +22,15 @@ def score(
     experiment: str = "experiment",
     progress: Progress | None = None,
     input_sha256: dict[str, str] | None = None,
+    scheduler: str | None = None,
 ) -> ScoreResult:
     """Score a hindcast pair; deterministic for a given seed.
 
     ``input_sha256`` may carry checksums known already (the service hashes uploads while they
-    stream); missing ones are computed here.
+    stream); missing ones are computed here. ``scheduler`` is a dask.distributed address; without
+    it the work runs on a local thread pool.
     """
-    out = run(realistic, scrambled, observations, land_state, options=options, progress=progress)
+    out = run(realistic, scrambled, observations, land_state, options=options, progress=progress, scheduler=scheduler)
     paths: dict[str, Any] = {"realistic": realistic, "scrambled": scrambled, "observations": observations}
     if land_state is not None:
         paths["land_state"] = land_state
