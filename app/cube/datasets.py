@@ -88,15 +88,21 @@ class Source:
         lon: slice = slice(None),
         convert: Conversion | None = None,
         members: NDArray[np.int64] | None = None,
-    ) -> NDArray[np.float64]:
-        """A tile in canonical dim order (ROLE_DIMS), float64, converted by ``convert``."""
+    ) -> NDArray[np.floating]:
+        """A tile in canonical dim order (ROLE_DIMS), read from disk now.
+
+        Without ``convert`` the values keep their decoded floating dtype (float32 data stay
+        float32, halving the working set); with it they come back as converted float64.
+        """
         da = self.dataset[self.variable]
         index: dict[str, Any] = {self.dims[LAT]: lat, self.dims[LON]: lon}
         if members is not None:
             index[self.dims[MEMBER]] = members
         tile = da.isel(index).transpose(*(self.dims[c] for c in ROLE_DIMS[self.role]))
-        values = np.asarray(tile.values, dtype=np.float64)
-        return (convert or Conversion()).apply(values)
+        values = np.asarray(tile.values)
+        if values.dtype.kind != "f":
+            values = values.astype(np.float64)
+        return values if convert is None else convert.apply(values)
 
     def close(self) -> None:
         self.dataset.close()

@@ -149,17 +149,37 @@ class RunOutput:
     region_masks: NDArray[np.float64] = field(repr=False)
 
 
-def tile_rows(prep: Prepared, *, budget: int) -> int:
-    """Latitude rows per tile so that one tile's working set stays within ``budget`` bytes."""
+def tile_bytes_per_cell(prep: Prepared) -> int:
+    """Working-set bytes that one grid cell of a tile needs while it is reduced.
+
+    Per hindcast (read one after the other): the raw tile in its own dtype (float32 -> 4 bytes),
+    the NaN-free copy of the ensemble-mean sum and the NaN mask (9 bytes per value, float32);
+    the observations with their float64 cumulative sums (40 bytes per day); the float64
+    anomalies of both experiments and the observations with their temporaries.
+    """
     n_init = prep.init_dates.size
-    n_lead = max(int(prep.realistic.lead_days.size if prep.realistic.lead_days is not None else 1), 1)
+    n_lead = int(prep.realistic.lead_days.size if prep.realistic.lead_days is not None else 1)
     n_mem = max(int(prep.realistic.members or 1), int(prep.scrambled.members or 1))
     n_time = int(prep.observations.dates.size if prep.observations.dates is not None else 1)
-    # one hindcast tile in float64 with its member-mean and window temporaries, the observations
-    # and their cumulative sums, the anomalies of both experiments; a factor 2 of headroom
-    per_cell = 8 * (2 * n_init * n_mem * n_lead + 4 * n_time + 16 * n_init * len(prep.windows))
-    cells = max(1, budget // (2 * per_cell))
-    return int(max(1, min(prep.lat.size, cells // max(1, prep.lon.size))))
+    itemsize = max(prep.realistic.dataset[prep.realistic.variable].dtype.itemsize, 4)
+    hindcast = (2 * itemsize + 1) * n_init * n_mem * n_lead
+    return int(hindcast + 40 * n_time + 64 * n_init * len(prep.windows))
+
+
+def plan_tiles(prep: Prepared, *, budget: int) -> list[tuple[slice, slice]]:
+    """Spatial tiles (latitude band x longitude run) whose working set fits ``budget`` bytes.
+
+    Init, member and lead stay whole inside a tile; a tile is whole latitude rows when a row
+    fits, else a run of cells along one row.
+    """
+    n_lat, n_lon = prep.lat.size, prep.lon.size
+    cells = max(1, budget // max(1, tile_bytes_per_cell(prep)))
+    if cells >= n_lon:
+        rows = min(n_lat, cells // n_lon)
+        return [(slice(i, min(n_lat, i + rows)), slice(0, n_lon)) for i in range(0, n_lat, rows)]
+    return [
+        (slice(i, i + 1), slice(j, min(n_lon, j + cells))) for i in range(n_lat) for j in range(0, n_lon, cells)
+    ]
 
 
 @dataclass(frozen=True)
@@ -201,7 +221,7 @@ def _opened(spec: InputSpec) -> Prepared:
 class TileOutput:
     """One tile task's result: its anomalies and its cells' bootstrap contributions."""
 
-    rows: slice
+    cells: NDArray[np.int64]  # flat (lat-major) indices of the tile's cells
     anomalies: TileAnomalies
     blocks: list[BlockStats]
 
@@ -209,27 +229,30 @@ class TileOutput:
 def tile_task(
     source: Prepared | InputSpec,
     rows: slice,
+    cols: slice,
     weights: NDArray[np.float64],
     boot: Bootstrap,
     leave_one_out: bool,
     block_cells: int,
 ) -> TileOutput:
-    """Reduce one band of latitude rows and bootstrap its cells (runs in any worker)."""
+    """Reduce one tile of the grid and bootstrap its cells (runs in any worker)."""
     prep = source if isinstance(source, Prepared) else _opened(source)
-    tile = reduce_tile(prep, lat=rows, lon=slice(None), leave_one_out=leave_one_out)
+    tile = reduce_tile(prep, lat=rows, lon=cols, leave_one_out=leave_one_out)
     n_lon = prep.lon.size
-    first = rows.start * n_lon
-    n_cells = tile.realistic.shape[-1]
+    lat_idx = np.arange(prep.lat.size)[rows]
+    lon_idx = np.arange(n_lon)[cols]
+    flat = (lat_idx[:, None] * n_lon + lon_idx[None, :]).ravel()
+    n_cells = flat.size
     blocks = []
     for i in range(0, n_cells, block_cells):
         local = np.arange(i, min(n_cells, i + block_cells))
         blocks.append(
             block_stats(
                 tile.realistic[..., local], tile.scrambled[..., local], tile.observed[..., local],
-                first + local, boot, weights[:, first + local],
+                flat[local], boot, weights[:, flat[local]],
             )
         )
-    return TileOutput(rows=rows, anomalies=tile, blocks=blocks)
+    return TileOutput(cells=flat, anomalies=tile, blocks=blocks)
 
 
 def run(
@@ -262,9 +285,8 @@ def run(
         counts = year_block_counts(prep.years.size, resamples=options.resamples, seed=options.seed)
         boot = Bootstrap(counts=counts, confidence=options.confidence, method=options.interval)  # type: ignore[arg-type]
         with TaskRunner(scheduler, threads=threads or min(2, os.cpu_count() or 1)) as runner:
-            budget = (options.memory_budget or DEFAULT_MEMORY_BUDGET) // (1 if runner.distributed else runner.threads)
-            rows = tile_rows(prep, budget=budget)
-            block = max(1, min(BLOCK_CELLS, budget // max(1, 8 * 8 * options.resamples * len(prep.windows))))
+            budget = task_budget(options.memory_budget, workers=1 if runner.distributed else runner.threads)
+            block = max(1, min(BLOCK_CELLS, budget // max(1, 64 * options.resamples * len(prep.windows))))
             source: Prepared | InputSpec = prep
             if runner.distributed:
                 source = InputSpec(
@@ -276,8 +298,8 @@ def run(
                     options.equalize_members, options.seed,
                 )
             tasks = [
-                (source, slice(i, min(prep.lat.size, i + rows)), weights, boot, options.leave_one_out, block)
-                for i in range(0, prep.lat.size, rows)
+                (source, rows, cols, weights, boot, options.leave_one_out, block)
+                for rows, cols in plan_tiles(prep, budget=budget)
             ]
             outputs = runner.map(
                 tile_task, tasks,
@@ -297,6 +319,15 @@ def run(
 
 
 BLOCK_CELLS = 512
+#: share of the memory budget left to tile tasks; the rest holds the interpreter, the libraries,
+#: the assembled anomaly cube and the maps (a fresh process with numpy, xarray, netCDF4 and dask
+#: imported is some 250 MB)
+TASK_SHARE = 0.5
+
+
+def task_budget(memory_budget: int | None, *, workers: int) -> int:
+    """Bytes one tile task may use: the budget's task share, split over concurrent tasks."""
+    return int(TASK_SHARE * (memory_budget or DEFAULT_MEMORY_BUDGET)) // max(1, workers)
 
 
 def _regions(options: ScoreOptions) -> list[Region]:
@@ -305,11 +336,11 @@ def _regions(options: ScoreOptions) -> list[Region]:
 
 def _assemble(prep: Prepared, outputs: list[TileOutput]) -> Cube:
     Y, S, W = prep.years.size, len(prep.slots), len(prep.windows)
-    n_lon, n_cells = prep.lon.size, prep.n_cells
+    n_cells = prep.n_cells
     fields = {k: np.full((Y, S, W, n_cells), np.nan) for k in ("x1", "x2", "y")}
     land = np.full((Y, S, n_cells), np.nan) if prep.land_state is not None else None
     for out in outputs:
-        cells = slice(out.rows.start * n_lon, out.rows.stop * n_lon)
+        cells = out.cells
         fields["x1"][..., cells] = out.anomalies.realistic
         fields["x2"][..., cells] = out.anomalies.scrambled
         fields["y"][..., cells] = out.anomalies.observed

@@ -19,7 +19,7 @@ from app.cube.datasets import Source, open_source, same_grid
 from app.cube.units import Conversion, conversion, parse_units
 from app.cube.windows import LeadWindow, default_windows, lead_indices
 from app.errors import InputError
-from app.stats.anomalies import anomalies, nanmean, standardized_anomalies, window_means
+from app.stats.anomalies import anomalies, ensemble_mean, standardized_anomalies, window_means
 
 MIN_YEARS = 3
 FloatArray = NDArray[np.float64]
@@ -319,10 +319,13 @@ def _hindcast_windows(
     lat: slice,
     lon: slice,
 ) -> FloatArray:
-    raw = src.read(lat=lat, lon=lon, convert=prep.to_units[key], members=members)
-    raw = raw[positions]  # (init, member, lead, lat, lon) on the common starts
-    ens = nanmean(raw, axis=1)  # ensemble mean: (init, lead, lat, lon)
+    raw = src.read(lat=lat, lon=lon, members=members)  # (init, member, lead, lat, lon), native dtype
+    if not (positions.size == raw.shape[0] and np.array_equal(positions, np.arange(raw.shape[0]))):
+        raw = raw[positions]  # the common start dates only
+    ens = ensemble_mean(raw, axis=1)  # (init, lead, lat, lon) float64
+    del raw
     win = window_means(ens, prep.lead_index, axis=1)  # (init, window, lat, lon)
+    win = prep.to_units[key].apply(win)  # linear units commute with means
     return win.reshape(win.shape[0], win.shape[1], -1)
 
 

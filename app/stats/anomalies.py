@@ -47,6 +47,16 @@ def nanmean(values: FloatArray, *, axis: int | tuple[int, ...]) -> FloatArray:
         return np.where(n > 0, total / n, np.nan)
 
 
+def ensemble_mean(values: NDArray[np.floating], *, axis: int) -> FloatArray:
+    """NaN-aware mean over the member ``axis`` accumulated in float64, without a float64 copy
+    of the (often float32) input."""
+    x = np.asarray(values)
+    count = np.count_nonzero(~np.isnan(x), axis=axis)
+    total = np.nansum(x, axis=axis, dtype=np.float64)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(count > 0, total / count, np.nan)
+
+
 def window_means(values: FloatArray, lead_index: list[NDArray[np.int64]], *, axis: int) -> FloatArray:
     """Means over groups of positions of ``axis`` (one group per lead window); the window axis
     takes the place of ``axis``."""
