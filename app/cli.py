@@ -157,12 +157,9 @@ def build_parser() -> argparse.ArgumentParser:
     sc.add_argument("--out", required=True, help="output folder")
     sc.set_defaults(func=cmd_score)
 
-    try:
-        from app.service_cli import add_service_commands
-    except ImportError:
-        pass
-    else:
-        add_service_commands(sub)
+    from app.service_cli import add_service_commands
+
+    add_service_commands(sub)
     return parser
 
 
@@ -173,6 +170,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         return int(args.func(args) or 0)
     except LandliftError as exc:
         print(f"landlift: error: {exc.message}", file=sys.stderr)
+        return 2
+    except ValueError as exc:  # e.g. a bad LANDLIFT_* setting (pydantic names the variable)
+        print(f"landlift: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("landlift: interrupted", file=sys.stderr)

@@ -84,3 +84,67 @@ def paired_samples(make_paired_samples: PairedFactory) -> PairedSamples:
 def paired_samples_with_gaps(make_paired_samples: PairedFactory) -> PairedSamples:
     """Like ``paired_samples`` with about 15 % NaNs scattered into each array independently."""
     return make_paired_samples(nan_fraction=0.15)
+
+
+# ---------------------------------------------------------------------------------------------
+# CF file fixtures (tests/cf_factory.py) for the cube, engine and CLI tests. They compose:
+# ``cf_spec`` (the clean synthetic case) -> ``make_cf_case`` (writes a case, with any defect, into
+# a fresh folder) -> ``cf_case`` (the clean case written). The committed sample scenario:
+# ``sample_paths`` -> ``sample_options`` -> ``sample_result`` (scored once per session with the
+# default options plus the semi-arid belt and humid east boxes of sample_data/README.md).
+
+from pathlib import Path  # noqa: E402
+
+from cf_factory import SAMPLE_BELT, SAMPLE_EAST, CasePaths, CaseSpec, write_case  # noqa: E402
+
+SAMPLE_DATA_DIR = Path(__file__).resolve().parents[1] / "sample_data"
+
+
+@pytest.fixture
+def cf_spec() -> CaseSpec:
+    """The clean synthetic case: 8 years x 2 starts x 3 members x 28 lead days x 3 x 4 cells."""
+    return CaseSpec()
+
+
+@pytest.fixture
+def make_cf_case(tmp_path_factory: pytest.TempPathFactory, cf_spec: CaseSpec) -> Callable[..., CasePaths]:
+    """Factory: ``make(**changes)`` writes ``cf_spec`` with ``changes`` (defects) to a new folder."""
+
+    def make(**changes: object) -> CasePaths:
+        return write_case(tmp_path_factory.mktemp("cf"), cf_spec, **changes)
+
+    return make
+
+
+@pytest.fixture
+def cf_case(make_cf_case: Callable[..., CasePaths]) -> CasePaths:
+    """The clean synthetic case, written."""
+    return make_cf_case()
+
+
+@pytest.fixture(scope="session")
+def sample_paths() -> dict[str, Path]:
+    """The committed sample scenario files by role."""
+    files = {r: SAMPLE_DATA_DIR / f"{r}.nc" for r in ("realistic", "scrambled", "observations", "land_state")}
+    missing = [str(p) for p in files.values() if not p.is_file()]
+    assert not missing, f"committed sample files missing: {missing}"
+    return files
+
+
+@pytest.fixture(scope="session")
+def sample_options() -> object:
+    """Default scoring options (1000 resamples, seed 1234) plus the belt and east boxes."""
+    from app.results.engine import ScoreOptions
+
+    return ScoreOptions(regions=[SAMPLE_BELT, SAMPLE_EAST]).validate()
+
+
+@pytest.fixture(scope="session")
+def sample_result(sample_paths: dict[str, Path], sample_options: object) -> object:
+    """The sample scenario scored once per session (do not add regions to it in a test)."""
+    from app.results.engine import score
+
+    return score(
+        sample_paths["realistic"], sample_paths["scrambled"], sample_paths["observations"],
+        sample_paths["land_state"], options=sample_options, experiment="sample-continent",
+    )

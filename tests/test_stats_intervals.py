@@ -12,6 +12,7 @@ from app.stats.intervals import (
     INTERVAL_METHODS,
     alpha_of_tail,
     bootstrap_interval,
+    significance_level,
     tail_level,
 )
 
@@ -42,7 +43,7 @@ def test_expanded_tail_level_matches_hesterberg(n, confidence):
     # Hesterberg (2015), The American Statistician 69(4), "What teachers should know about the
     # bootstrap", expanded percentile interval: alpha'/2 = Phi(-sqrt(n/(n-1)) t_{n-1,1-alpha/2}),
     # computed here independently with scipy.stats.
-    alpha = 1.0 - confidence
+    alpha = significance_level(confidence)
     expected = sps.norm.cdf(-np.sqrt(n / (n - 1)) * sps.t.ppf(1.0 - alpha / 2.0, df=n - 1))
     assert tail_level(confidence, n_blocks=n) == pytest.approx(expected, rel=1e-12)
     assert tail_level(confidence, n_blocks=n, method="expanded") < alpha / 2.0
@@ -114,7 +115,7 @@ def test_interval_excludes_zero_iff_p_below_one_minus_confidence(draws, method, 
     for n_blocks in (15, 30):
         iv = bootstrap_interval(draws, confidence=confidence, n_blocks=n_blocks, method=method)
         excl = _excludes_zero(iv.low, iv.high)
-        signif = iv.p_value < 1.0 - confidence
+        signif = iv.p_value < significance_level(confidence)
         bad = np.flatnonzero(excl != signif)
         assert bad.size == 0, (
             f"{bad.size} columns disagree, e.g. column {bad[0]}: low={iv.low[bad[0]]}, "
@@ -134,7 +135,7 @@ def test_agreement_when_the_smaller_tail_count_equals_the_tail_level(confidence)
     d = np.concatenate([-np.arange(1, k + 1) / B, np.arange(1, B - k + 1) / B])
     iv = bootstrap_interval(d, confidence=confidence, n_blocks=15, method="percentile")
     excl = bool(_excludes_zero(iv.low, iv.high))
-    assert excl == bool(iv.p_value < 1.0 - confidence), (
+    assert excl == bool(iv.p_value < significance_level(confidence)), (
         f"confidence {confidence}: low={float(iv.low)}, p={float(iv.p_value)!r}, "
         f"1 - confidence={1.0 - confidence!r}"
     )

@@ -275,6 +275,9 @@ def _pick_variable(
             raise InputError(f"has extra dims {sorted(extra)}; select one level first", file=file, variable=variable)
         return variable
     if len(fitting) == 1:
+        extra = set(map(str, ds[fitting[0]].dims)) - need
+        if extra:
+            raise InputError(f"has extra dims {sorted(extra)}; select one level first", file=file, variable=fitting[0])
         return fitting[0]
     if not fitting:
         raise InputError(

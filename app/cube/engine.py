@@ -10,7 +10,6 @@ turns the returned :class:`RunOutput` into files and JSON.
 from __future__ import annotations
 
 import os
-import re
 import threading
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
@@ -39,6 +38,7 @@ from app.cube.parallel import TaskRunner
 from app.cube.regions import ALL, Region, region_weights, resolve_region
 from app.cube.windows import LeadWindow, windows_from_dicts
 from app.errors import InputError, ParameterError
+from app.sizes import parse_size
 from app.stats.intervals import INTERVAL_METHODS
 from app.stats.resample import year_block_counts
 
@@ -94,19 +94,14 @@ class ScoreOptions:
         return cls(**data)
 
 
-_SIZE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([KMGT]i?B?|B)?\s*$", re.IGNORECASE)
-
-
 def parse_memory_budget(text: str | int | None) -> int | None:
-    """``"512MiB"``, ``"2GiB"``, ``"1.5GB"`` or a byte count -> bytes (binary multiples)."""
-    if text is None or isinstance(text, int):
-        return text
-    m = _SIZE.match(text)
-    if not m:
-        raise ParameterError(f"memory budget {text!r} is not a size such as '512MiB' or '2GiB'")
-    unit = (m[2] or "B").upper().rstrip("B").rstrip("I")
-    scale = {"": 1, "K": 2**10, "M": 2**20, "G": 2**30, "T": 2**40}[unit]
-    return int(float(m[1]) * scale)
+    """``"512MiB"``, ``"2GiB"``, ``"1.5GB"`` or a byte count -> bytes (see :mod:`app.sizes`)."""
+    if text is None:
+        return None
+    try:
+        return parse_size(text)
+    except ValueError as exc:
+        raise ParameterError(f"memory budget: {exc}") from exc
 
 
 def check_inputs(

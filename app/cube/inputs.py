@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from app.cube.datasets import Source, open_source, same_grid
+from app.cube.datasets import Source, check_not_all_nan, open_source, same_grid
 from app.cube.units import Conversion, conversion, parse_units
 from app.cube.windows import LeadWindow, default_windows, lead_indices
 from app.errors import InputError
@@ -103,6 +103,8 @@ def prepare(
         scr = _open(scrambled, "hindcast", variable or real.variable, opened)
         obs = _open(observations, "observations", variable or real.variable, opened)
         land = _open(land_state, "land_state", None, opened) if land_state is not None else None
+        if land is not None:
+            check_not_all_nan(land)
         return _cross_check(real, scr, obs, land, windows=windows, equalize=equalize_members, seed=seed)
     except Exception:
         for src in opened:
@@ -115,7 +117,7 @@ def _open(path: str | Path, role: str, variable: str | None, opened: list[Source
         src = open_source(path, role=role, variable=variable)
     except InputError as exc:
         # a differently named observed variable is fine when the file holds only one
-        if variable is None or "has no variable" not in exc.message:
+        if variable is None or role != "observations" or "has no variable" not in exc.message:
             raise
         src = open_source(path, role=role, variable=None)
         src.warnings.append(f"{src.name}: variable {variable!r} absent; scoring {src.variable!r} instead")
@@ -261,15 +263,18 @@ def _observation_index(obs: Source, inits: NDArray[np.datetime64], wins: list[Le
     """First observation index of each (start, window), -1 unless every day of it is present."""
     dates = obs.dates
     assert dates is not None
+    full = np.arange(dates[0], dates[-1] + np.timedelta64(1, "D"))
+    present = np.zeros(full.size, dtype=bool)
+    present[(dates - dates[0]).astype(np.int64)] = True
+    csum = np.concatenate([[0], np.cumsum(present)])
     out = np.full((inits.size, len(wins)), -1, dtype=np.int64)
     for k, w in enumerate(wins):
-        first = inits + np.timedelta64(w.first_day - 1, "D")
-        last = inits + np.timedelta64(w.last_day - 1, "D")
-        i0 = np.searchsorted(dates, first)
-        i1 = i0 + (w.last_day - w.first_day)
-        ok = (i1 < dates.size) & (dates[np.minimum(i0, dates.size - 1)] == first)
-        ok &= dates[np.minimum(i1, dates.size - 1)] == last
-        out[:, k] = np.where(ok, i0, -1)
+        i0 = ((inits + np.timedelta64(w.first_day - 1, "D")) - dates[0]).astype(np.int64)
+        i1 = i0 + w.days
+        inside = (i0 >= 0) & (i1 <= full.size)
+        some = np.zeros_like(inside)
+        some[inside] = csum[i1[inside]] > csum[i0[inside]]
+        out[:, k] = np.where(inside & some, i0, -1)
     return out
 
 
@@ -331,7 +336,11 @@ def _hindcast_windows(
 
 def _observed_windows(prep: Prepared, lat: slice, lon: slice) -> FloatArray:
     raw = prep.observations.read(lat=lat, lon=lon, convert=prep.to_units["observations"])
-    flat = raw.reshape(raw.shape[0], -1)  # (time, cells)
+    dates = prep.observations.dates
+    assert dates is not None
+    n_full = int((dates[-1] - dates[0]).astype(np.int64)) + 1
+    flat = np.full((n_full, raw.shape[1] * raw.shape[2]), np.nan)
+    flat[(dates - dates[0]).astype(np.int64)] = raw.reshape(raw.shape[0], -1)  # (day, cells)
     finite = np.isfinite(flat)
     csum = np.concatenate([np.zeros((1, flat.shape[1])), np.cumsum(np.where(finite, flat, 0.0), axis=0)])
     ccnt = np.concatenate([np.zeros((1, flat.shape[1])), np.cumsum(finite, axis=0)])

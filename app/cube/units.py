@@ -42,7 +42,7 @@ def parse_units(text: object, *, file: str, variable: str) -> pint.Unit:
         raise InputError("has no 'units' attribute; add CF units such as 'K'", file=file, variable=variable)
     try:
         return ureg.Unit(str(text))
-    except (pint.UndefinedUnitError, pint.DefinitionSyntaxError, ValueError, AttributeError) as exc:
+    except Exception as exc:  # pint's parser also raises TokenError, AssertionError, ZeroDivisionError
         raise InputError(
             f"units {text!r} are not understood ({exc}); give CF units such as 'K' or 'kg m-2 s-1'",
             file=file,

@@ -11,6 +11,8 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from app.stats.intervals import significance_level
+
 FIELD_STYLE: dict[str, tuple[str, float | None]] = {
     "gain": ("RdBu_r", 0.6),
     "gain_low": ("RdBu_r", 0.6),
@@ -65,7 +67,7 @@ def skill_png(curve: dict[str, Any]) -> bytes:
     )
     g, lo, hi = series("gain", "value"), series("gain", "low"), series("gain", "high")
     p = series("gain", "p_value")
-    sig = p < 1 - curve["confidence"]
+    sig = p < significance_level(curve["confidence"])
     bottom.bar(x, g, color=np.where(sig, "tab:blue", "lightsteelblue"), width=0.5)
     bottom.errorbar(x, g, yerr=[g - lo, hi - g], fmt="none", ecolor="black", capsize=3)
     bottom.axhline(0.0, color="black", lw=0.6)

@@ -33,6 +33,8 @@ from app.results.curves import conditional_table, region_curves
 from app.results.provenance import code_version, history_line
 
 FILES = ("skill.json", "maps.nc", "anomalies.nc", "result.json")
+#: p-values stay float64 so that "p < 1 - confidence" read from the file agrees with the bounds
+MAP_DTYPES: dict[str, type] = {"p_value": np.float64, "n_samples": np.int32}
 
 
 class ScoreResult:
@@ -228,7 +230,7 @@ def build_maps(out: RunOutput, meta: dict[str, Any]) -> xr.Dataset:
     }
     data = {
         name: xr.DataArray(
-            values.astype(np.float32) if name != "n_samples" else values.astype(np.int32),
+            values.astype(MAP_DTYPES.get(name, np.float32)),
             dims=dims,
             attrs={"long_name": long, "units": "1"},
         )

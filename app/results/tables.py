@@ -6,6 +6,8 @@ import csv
 import io
 from typing import Any
 
+from app.stats.intervals import significance_level
+
 CSV_COLUMNS = (
     "experiment",
     "variable",
@@ -88,7 +90,7 @@ def curve_table(curve: dict[str, Any]) -> str:
     for w in curve["windows"]:
         g = w["gain"]
         p = g["p_value"]
-        star = "*" if p is not None and p < 1 - curve["confidence"] else " "
+        star = "*" if p is not None and p < significance_level(curve["confidence"]) else " "
         interval = f"[{_f(g['low'], 0)}, {_f(g['high'], 0)}]"
         lines.append(
             f"{w['label']:<10} {w['first_day']:>2}-{w['last_day']:<3} {w['n_years']:>5} "

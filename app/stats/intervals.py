@@ -17,7 +17,8 @@ Both take quantiles as order statistics of the finite resamples (the inverted-CD
 lower one from the draws and the upper one from the negated draws, so that the interval excludes
 zero exactly when the smaller tail fraction ``min(#(d <= 0), #(d >= 0)) / B`` is below the tail
 level. The p-value inverts the same map from tail level to ``alpha``; hence, for every column,
-the interval excludes 0 if and only if ``p < 1 - confidence``. Its resolution is about 1/B.
+the interval excludes 0 if and only if ``p < significance_level(confidence)``
+(``1 - confidence`` rounded to 12 decimals). Its resolution is about 1/B.
 """
 
 from __future__ import annotations
@@ -43,10 +44,19 @@ class Interval:
     p_value: FloatArray
 
 
+def significance_level(confidence: float) -> float:
+    """``1 - confidence`` rounded to 12 decimals, so that 0.95 gives exactly the double 0.05.
+
+    Every comparison ``p < 1 - confidence`` in landlift uses this value; the raw float
+    ``1.0 - 0.95`` is 0.050000000000000044 and would call p = 0.05 significant.
+    """
+    return round(1.0 - confidence, 12)
+
+
 def tail_level(confidence: float, *, n_blocks: int, method: IntervalMethod = "expanded") -> float:
     """Probability in each tail of the bootstrap distribution at which the bounds are read."""
     _check(confidence, n_blocks, method)
-    alpha = 1.0 - confidence
+    alpha = significance_level(confidence)
     if method == "percentile":
         return alpha / 2.0
     t = sps.t.isf(alpha / 2.0, df=n_blocks - 1)
@@ -95,7 +105,7 @@ def bootstrap_interval(
 
 def _lower_order_statistic(d: FloatArray, n_fin: NDArray[np.int_], tail: float) -> FloatArray:
     """Inverted-CDF quantile at ``tail`` of each column; non-finite draws were set to +inf."""
-    k = np.maximum(np.ceil(tail * n_fin).astype(np.int64), 1) - 1  # 0-based order index
+    k = np.maximum(np.ceil(tail * n_fin - 1e-9).astype(np.int64), 1) - 1  # 0-based order index
     n_res = d.shape[0]
     k = np.minimum(k, max(n_res - 1, 0))
     if d.ndim == 1:

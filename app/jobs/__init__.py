@@ -1,0 +1,1 @@
+"""Durable job queue in the database and the worker loop (see queue.py, worker.py)."""

@@ -1,0 +1,270 @@
+"""The worker running real jobs: score and compare through the store, errors, stop, lease loss."""
+
+from __future__ import annotations
+
+import json
+import threading
+import time
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+import pytest
+import xarray as xr
+from sqlalchemy import update
+
+from app.cube.engine import ScoreOptions
+from app.jobs.handlers import JobContext, run_score
+from app.jobs.worker import Worker, start_worker_thread
+from app.results.engine import score
+from app.store import Store, repo
+from app.store.models import Job
+
+OPTIONS = ScoreOptions(resamples=50, seed=11)
+
+
+def _direct(sample_files: dict[str, Any], options: ScoreOptions = OPTIONS) -> Any:
+    """The same scoring without the service (what `landlift score` runs)."""
+    return score(
+        sample_files["realistic"],
+        sample_files["scrambled"],
+        sample_files["observations"],
+        sample_files["land_state"],
+        options=options,
+    )
+
+
+def _numbers(curves: list[dict[str, Any]]) -> list[Any]:
+    """Every number of the skill curves (names and identity fields dropped)."""
+    out = []
+    for curve in curves:
+        for w in curve["windows"]:
+            out.append(
+                [w["label"], w["n_years"], w["n_samples"]]
+                + [w[k][f] for k in ("acc_realistic", "acc_scrambled") for f in ("value", "low", "high")]
+                + [w["gain"][f] for f in ("value", "low", "high", "p_value")]
+            )
+    return out
+
+
+def test_score_job_gives_the_engine_numbers(
+    store: Store,
+    ingest_sample: Callable[..., dict[str, str]],
+    sample_files: dict[str, Any],
+    check_artifacts: Callable[[], int],
+) -> None:
+    ids = ingest_sample()
+    exp = repo.create_experiment(
+        store, name="sample", options=OPTIONS.validate().to_dict(), **ids
+    )
+    assert Worker(store).run(drain=True) == 1
+    job = repo.get_job(store, exp["job"]["id"])
+    assert (job["status"], job["progress"], job["attempts"], job["error"]) == (
+        "done", 1.0, 1, None,
+    )
+    result = repo.load_result(store, exp["id"])
+    reference = _direct(sample_files)
+    assert _numbers(result.curves) == _numbers(reference.curves)
+    xr.testing.assert_allclose(result.maps, reference.maps, rtol=0, atol=0)
+    assert set(repo.result_files(store, exp["id"])) >= {"skill.json", "maps.nc", "result.json"}
+    skill = json.loads(repo.result_files(store, exp["id"])["skill.json"].read_text())
+    assert skill[0]["seed"] == 11 and skill[0]["resamples"] == 50
+    finished = repo.get_experiment(store, exp["id"])
+    assert finished["status"] == "done" and finished["finished_at"] is not None
+    assert finished["provenance"]["result"]["seed"] == 11
+    assert len(finished["result_digest"]) == 64
+    assert check_artifacts() >= 4 + 3  # four inputs, three or four result files
+
+
+def test_progress_is_reported_in_order(
+    store: Store, ingest_sample: Callable[..., dict[str, str]]
+) -> None:
+    exp = repo.create_experiment(
+        store, name="progress", options=OPTIONS.to_dict(), **ingest_sample()
+    )
+    seen: list[float] = []
+
+    def watched(ctx: JobContext) -> Any:
+        inner = ctx.progress
+
+        def progress(fraction: float, message: str = "") -> None:
+            inner(fraction, message)
+            seen.append(repo.get_job(store, ctx.claim.job_id)["progress"])
+
+        ctx.progress = progress
+        return run_score(ctx)
+
+    Worker(store, handlers={"score": watched}, progress_interval=0.0).run(drain=True)
+    assert repo.get_job(store, exp["job"]["id"])["status"] == "done"
+    assert len(seen) >= 3 and seen == sorted(seen) and 0.0 < seen[-2] < 1.0
+
+
+def test_bad_options_fail_at_once_with_the_error(
+    store: Store, ingest_sample: Callable[..., dict[str, str]]
+) -> None:
+    ids = ingest_sample(("realistic", "scrambled", "observations"))
+    exp = repo.create_experiment(
+        store, name="bad", options={**OPTIONS.to_dict(), "resamples": 0}, **ids
+    )
+    Worker(store).run(drain=True)
+    job = repo.get_job(store, exp["job"]["id"])
+    assert job["status"] == "failed" and job["attempts"] == 1
+    assert job["error"].startswith("invalid_parameter: ") and "resamples" in job["error"]
+    with pytest.raises(repo.ResultNotReady):
+        repo.result_files(store, exp["id"])
+
+
+def test_unexpected_errors_are_retried_then_failed(
+    store: Store, ingest_sample: Callable[..., dict[str, str]]
+) -> None:
+    exp = repo.create_experiment(
+        store, name="flaky", options=OPTIONS.to_dict(),
+        **ingest_sample(("realistic", "scrambled", "observations")),
+    )
+    calls: list[int] = []
+
+    def broken(ctx: JobContext) -> Any:
+        calls.append(ctx.claim.attempt)
+        raise OSError(f"disk full on attempt {ctx.claim.attempt}")
+
+    worker = Worker(store, handlers={"score": broken})
+    deadline = time.monotonic() + 30
+    while repo.get_job(store, exp["job"]["id"])["status"] != "failed":
+        worker.run(drain=True)
+        assert time.monotonic() < deadline
+        time.sleep(0.05)
+    job = repo.get_job(store, exp["job"]["id"])
+    assert calls == [1, 2, 3] and job["attempts"] == 3
+    assert job["error"] == "OSError: disk full on attempt 3"
+    outcomes = [a["outcome"] for a in repo.job_attempts(store, exp["job"]["id"])]
+    assert outcomes == ["retry", "retry", "failed"]
+
+
+def test_stopping_hands_the_job_back(
+    store: Store, ingest_sample: Callable[..., dict[str, str]]
+) -> None:
+    exp = repo.create_experiment(
+        store, name="stop", options=OPTIONS.to_dict(),
+        **ingest_sample(("realistic", "scrambled", "observations")),
+    )
+    started = threading.Event()
+
+    def slow(ctx: JobContext) -> Any:
+        started.set()
+        for i in range(600):
+            ctx.progress(i / 600, "working")
+            time.sleep(0.05)
+        raise AssertionError("the worker did not stop")
+
+    stop = threading.Event()
+    worker = Worker(store, stop_event=stop, handlers={"score": slow})
+    thread = threading.Thread(target=worker.run)
+    thread.start()
+    assert started.wait(20)
+    stop.set()
+    thread.join(10)
+    assert not thread.is_alive()
+    job = repo.get_job(store, exp["job"]["id"])
+    assert (job["status"], job["attempts"]) == ("queued", 0)
+    assert [a["outcome"] for a in repo.job_attempts(store, job["id"])] == ["released"]
+
+
+def test_a_worker_that_lost_its_job_records_nothing(
+    store: Store, ingest_sample: Callable[..., dict[str, str]]
+) -> None:
+    exp = repo.create_experiment(
+        store, name="stolen", options=OPTIONS.to_dict(),
+        **ingest_sample(("realistic", "scrambled", "observations")),
+    )
+    outcome: list[str] = []
+
+    def robbed(ctx: JobContext) -> Any:
+        # another worker takes the job over (what a takeover after an expired lease does)
+        with store.db.write() as session:
+            session.execute(
+                update(Job).where(Job.id == ctx.claim.job_id).values(owner_token="f" * 32)
+            )
+        for _ in range(100):  # the next heartbeat notices; progress then raises LeaseLost
+            ctx.progress(0.5, "still computing")
+            time.sleep(0.1)
+        outcome.append("kept running")
+        return run_score(ctx)
+
+    worker = Worker(store, handlers={"score": robbed}, heartbeat_seconds=0.2)
+    claimed = worker.run(once=True)
+    assert claimed == 1 and outcome == []
+    job = repo.get_job(store, exp["job"]["id"])
+    assert job["status"] == "running"  # still the thief's, untouched by the robbed worker
+    with pytest.raises(repo.ResultNotReady):
+        repo.result_files(store, exp["id"])
+
+
+def test_compare_job(
+    store: Store,
+    ingest_sample: Callable[..., dict[str, str]],
+    check_artifacts: Callable[[], int],
+) -> None:
+    from app.results.compare import compare_results
+
+    ids = ingest_sample()
+    a = repo.create_experiment(store, name="a", options=OPTIONS.to_dict(), **ids)
+    b = repo.create_experiment(
+        store, name="b", options={**OPTIONS.to_dict(), "seed": 12}, **ids
+    )
+    Worker(store).run(drain=True)
+    cmp = repo.create_comparison(store, baseline=a["id"], candidate=b["id"], resamples=50, seed=5)
+    Worker(store).run(drain=True)
+    done = repo.get_comparison(store, cmp["id"])
+    assert done["status"] == "done", done["job"]
+    expected = compare_results(
+        repo.load_result(store, a["id"]), repo.load_result(store, b["id"]),
+        resamples=50, seed=5, confidence=0.95,
+    )
+    assert done["result"] == json.loads(json.dumps(expected, sort_keys=True))
+    check_artifacts()
+
+
+def test_in_process_worker_thread(
+    settings: Any, store: Store, ingest_sample: Callable[..., dict[str, str]]
+) -> None:
+    exp = repo.create_experiment(store, name="thread", options=OPTIONS.to_dict(), **ingest_sample())
+    stop = threading.Event()
+    thread = start_worker_thread(settings, stop_event=stop)
+    try:
+        deadline = time.monotonic() + 60
+        while repo.get_job(store, exp["job"]["id"])["status"] != "done":
+            assert time.monotonic() < deadline
+            time.sleep(0.1)
+    finally:
+        stop.set()
+        thread.join(10)
+    assert not thread.is_alive()
+    assert np.isfinite(repo.load_result(store, exp["id"]).curve()["windows"][0]["gain"]["value"])
+
+
+def test_score_job_on_a_dask_cluster(
+    settings: Any,
+    ingest_sample: Callable[..., dict[str, str]],
+    sample_files: dict[str, Any],
+    store: Store,
+) -> None:
+    from distributed import LocalCluster
+
+    with LocalCluster(n_workers=1, threads_per_worker=2, processes=False,
+                      dashboard_address=None) as cluster:
+        on_cluster = Store(
+            db=store.db,
+            artifacts=store.artifacts,
+            settings=settings.model_copy(update={"dask_scheduler": cluster.scheduler_address}),
+        )
+        exp = repo.create_experiment(
+            on_cluster, name="dask", options=OPTIONS.to_dict(), **ingest_sample()
+        )
+        Worker(on_cluster).run(drain=True)
+        # the tile tasks went through this scheduler
+        assert cluster.scheduler.task_prefixes
+    job = repo.get_job(store, exp["job"]["id"])
+    assert job["status"] == "done", job["error"]
+    assert _numbers(repo.load_result(store, exp["id"]).curves) == _numbers(
+        _direct(sample_files).curves
+    )
