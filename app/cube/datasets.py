@@ -341,6 +341,8 @@ def _lead_days(ds: xr.Dataset, name: str, *, file: str) -> NDArray[np.int64]:
         raise InputError(f"coordinate {name!r} holds fractional days; daily means are needed", file=file)
     lead = np.round(days).astype(np.int64) + base
     _monotonic(lead, name=name, file=file)
+    if lead.size > 1 and lead[1] < lead[0]:
+        raise InputError(f"coordinate {name!r} must increase (lead days run {lead[0]}..{lead[-1]})", file=file)
     if lead[0] < 1:
         raise InputError(f"coordinate {name!r} starts at lead day {lead[0]}; lead days start at 1", file=file)
     return lead

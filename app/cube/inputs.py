@@ -160,9 +160,8 @@ def _cross_check(
     assert real.lead_days is not None and scr.lead_days is not None
     max_lead = int(min(real.lead_days[-1], scr.lead_days[-1]))
     wins = windows or default_windows(max_lead)
-    lead_index = lead_indices(wins, real.lead_days, file=real.name)
-    lead_indices(wins, scr.lead_days, file=scr.name)
-    lead_index_scr = lead_indices(wins, scr.lead_days, file=scr.name)
+    lead_index = lead_indices(wins, real.lead_days, file=real.name, variable=real.variable)
+    lead_index_scr = lead_indices(wins, scr.lead_days, file=scr.name, variable=scr.variable)
     if any(not np.array_equal(a, b) for a, b in zip(lead_index, lead_index_scr, strict=True)):
         raise InputError(f"lead days differ from those of {real.name}", file=scr.name, variable=scr.variable)
 

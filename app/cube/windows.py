@@ -82,7 +82,9 @@ def windows_from_dicts(items: list[dict[str, object]] | None) -> list[LeadWindow
     return out
 
 
-def lead_indices(windows: list[LeadWindow], lead_days: NDArray[np.int64], *, file: str) -> list[NDArray[np.int64]]:
+def lead_indices(
+    windows: list[LeadWindow], lead_days: NDArray[np.int64], *, file: str, variable: str | None = None
+) -> list[NDArray[np.int64]]:
     """Positions on the lead axis of each window's days; InputError if the hindcast lacks any."""
     position = {int(d): i for i, d in enumerate(lead_days)}
     out = []
@@ -94,6 +96,7 @@ def lead_indices(windows: list[LeadWindow], lead_days: NDArray[np.int64], *, fil
                 f"which has lead days {int(lead_days[0])}-{int(lead_days[-1])} (missing {missing[0]}"
                 f"{'...' if len(missing) > 1 else ''})",
                 file=file,
+                variable=variable,
             )
         out.append(np.array([position[d] for d in range(w.first_day, w.last_day + 1)], dtype=np.int64))
     return out
