@@ -14,6 +14,7 @@ demo: $(STAMP)
 	$(VENV)/bin/landlift demo
 
 test: $(STAMP)
+	@bash scripts/ensure-chromium.sh
 	$(VENV)/bin/ruff check app tests benchmarks sample_data
 	$(PY) -m pytest -q
 

@@ -80,14 +80,18 @@ def write_outputs(result: Any, out_dir: Path) -> dict[str, Path]:
 
 def _options(args: argparse.Namespace) -> Any:
     from app.cube.engine import ScoreOptions, parse_memory_budget
+    from app.cube.regions import read_geojson_region
     from app.cube.windows import parse_window
 
     windows = [parse_window(w).to_dict() for w in args.window] if args.window else None
+    regions = [
+        read_geojson_region(r) if r.endswith((".geojson", ".json")) else r for r in (args.region or [])
+    ]
     budget = args.memory_budget or os.environ.get("LANDLIFT_MEMORY_BUDGET")
     return ScoreOptions(
         variable=args.variable,
         lead_windows=windows,
-        regions=list(args.region or []),
+        regions=regions,
         resamples=args.resamples,
         seed=args.seed,
         confidence=args.confidence,

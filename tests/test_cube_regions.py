@@ -21,7 +21,13 @@ from cf_factory import CasePaths
 from shapely.geometry import Point, box
 
 from app.cube.engine import ScoreOptions, run
-from app.cube.regions import list_regions, region_mask, region_weights, resolve_region
+from app.cube.regions import (
+    list_regions,
+    read_geojson_region,
+    region_mask,
+    region_weights,
+    resolve_region,
+)
 from app.errors import NotFoundError, ParameterError
 
 REPO = Path(__file__).resolve().parents[1]
@@ -140,9 +146,12 @@ def test_geojson_polygon_mapping_and_file(tmp_path: Path) -> None:
     np.testing.assert_array_equal(region_mask(from_mapping, lat, lon), expected)
     path = tmp_path / "middle.geojson"
     path.write_text(json.dumps({"type": "FeatureCollection", "features": [gj]}))
-    from_file = resolve_region(str(path))
+    from_file = resolve_region(read_geojson_region(path))
     assert from_file.id == "polygon:middle"
     np.testing.assert_array_equal(region_mask(from_file, lat, lon), expected)
+    # a name is never read as a path: a region sent over HTTP cannot reach the server's disk
+    with pytest.raises(NotFoundError, match="unknown region"):
+        resolve_region(str(path))
     with pytest.raises(ParameterError, match="Polygon"):
         resolve_region({"name": "pt", "geojson": {"type": "Point", "coordinates": [1, 2]}})
 

@@ -72,6 +72,8 @@ class Source:
     members: int | None = None
     dates: NDArray[np.datetime64] | None = field(default=None, repr=False)
     warnings: list[str] = field(default_factory=list)
+    #: the variable asked for when the file lacked it and its only variable stands in
+    substitutes: str | None = None
 
     @property
     def name(self) -> str:

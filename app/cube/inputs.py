@@ -120,6 +120,7 @@ def _open(path: str | Path, role: str, variable: str | None, opened: list[Source
         if variable is None or role != "observations" or "has no variable" not in exc.message:
             raise
         src = open_source(path, role=role, variable=None)
+        src.substitutes = variable
         src.warnings.append(f"{src.name}: variable {variable!r} absent; scoring {src.variable!r} instead")
     opened.append(src)
     return src
@@ -140,7 +141,17 @@ def _cross_check(
     to_units = {"realistic": Conversion()}
     for key, src in (("scrambled", scr), ("observations", obs)):
         unit = parse_units(src.units, file=src.name, variable=src.variable)
-        to_units[key] = conversion(unit, target, file=src.name, variable=src.variable, target_file=real.name)
+        try:
+            to_units[key] = conversion(unit, target, file=src.name, variable=src.variable, target_file=real.name)
+        except InputError as exc:
+            if src.substitutes is None:
+                raise
+            raise InputError(
+                f"has no variable {src.substitutes!r}; its only variable {src.variable!r} is not "
+                f"the same quantity ({exc.message})",
+                file=src.name,
+                variable=src.substitutes,
+            ) from exc
     for src in (scr, obs) + ((land,) if land is not None else ()):
         same_grid(real, src)
 

@@ -7,6 +7,10 @@ Names a request may use:
                                      offline (the SREX regions, Seneviratne et al. 2012; the
                                      regions of Giorgi and Francisco 2000)
     a GeoJSON Feature, FeatureCollection or Polygon given as a mapping (``{"name", "geojson"}``)
+
+Region names never make this module read a file: the CLI reads a GeoJSON file itself
+(:func:`read_geojson_region`) and passes the mapping on, so a name sent over HTTP cannot reach
+the server's disk.
 """
 
 from __future__ import annotations
@@ -90,13 +94,20 @@ def resolve_region(spec: str | dict[str, Any]) -> Region:
                 f"unknown {set_name} region {abbrev!r}; choose one of {', '.join(abbrevs)}",
                 region=text,
             )
-    if text.endswith((".geojson", ".json")) and Path(text).is_file():
-        return _geojson_region({"name": Path(text).stem, "geojson": json.loads(Path(text).read_text())})
     raise NotFoundError(
-        f"unknown region {text!r}; use 'all', 'box:LAT0,LAT1,LON0,LON1', a GeoJSON file, "
+        f"unknown region {text!r}; use 'all', 'box:LAT0,LAT1,LON0,LON1', a GeoJSON polygon, "
         f"or an id of GET /v1/regions such as 'srex:{_reference_set('srex').abbrevs[0]}'",
         region=text,
     )
+
+
+def read_geojson_region(path: str | Path) -> dict[str, Any]:
+    """The mapping form of a GeoJSON file, named after the file (for the CLI)."""
+    p = Path(path)
+    try:
+        return {"name": p.stem, "geojson": json.loads(p.read_text())}
+    except (OSError, ValueError) as exc:
+        raise ParameterError(f"region file {p.name}: cannot read GeoJSON ({exc})") from exc
 
 
 def _box_region(text: str) -> Region:

@@ -1,0 +1,237 @@
+"""Results of finished experiments: skill curves, maps, conditional gain; regions.
+
+Every representation is derived once from the stored result, kept in the artifact store under a
+key made of the result digest and the request's options (``repo.put_cached``), and served from
+there afterwards. The ETag is a hash of the same identity, so ``If-None-Match`` is answered with a
+304 before any file is read.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import threading
+from collections.abc import Callable
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+from fastapi import APIRouter, Query, Request, Response
+
+from app.api.caching import RESULT_CACHE, cache_headers, make_etag, not_modified
+from app.api.deps import ReadAccess, StoreDep
+from app.api.routes.experiments import check_region_name
+from app.cube.regions import AGGREGATIONS, MAP_FIELDS, list_regions
+from app.errors import NotFoundError, ParameterError
+from app.store import Store, repo
+
+router = APIRouter(tags=["results"])
+
+MEDIA = {
+    "json": "application/json",
+    "csv": "text/csv; charset=utf-8",
+    "png": "image/png",
+    "netcdf": "application/x-netcdf",
+}
+EXTENSION = {"json": "json", "csv": "csv", "png": "png", "netcdf": "nc"}
+
+#: one derivation at a time per process: results are shared (LRU) objects that on-demand
+#: regions extend, and rendering is CPU-bound anyway
+_derive_lock = threading.Lock()
+
+
+def _safe(text: str) -> str:
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", text).strip("_") or "x"
+
+
+def _serve(
+    request: Request,
+    store: Store,
+    *,
+    key: str,
+    fmt: str,
+    filename: str,
+    make: Callable[[], bytes],
+) -> Response:
+    headers = cache_headers(make_etag(key), RESULT_CACHE)
+    cached = not_modified(request, headers)
+    if cached is not None:
+        return cached
+    found = repo.get_cached(store, key)
+    if found is None:
+        with _derive_lock:
+            found = repo.get_cached(store, key)
+            if found is None:
+                data = make()
+                path = repo.put_cached(store, key, data, media_type=MEDIA[fmt])
+                found = (path, MEDIA[fmt])
+    path, media_type = found
+    disposition = "inline" if fmt in ("json", "png") else "attachment"
+    headers["Content-Disposition"] = f'{disposition}; filename="{filename}"'
+    # results are small (one curve, one window); reading them whole keeps 200 and 304 headers
+    # identical apart from the body's own (no Last-Modified from a file's mtime)
+    return Response(Path(path).read_bytes(), media_type=media_type, headers=headers)
+
+
+def _json_bytes(payload: Any) -> bytes:
+    return json.dumps(payload, allow_nan=False).encode("utf-8")
+
+
+@router.get(
+    "/v1/experiments/{experiment_id}/skill",
+    responses={
+        200: {
+            "content": {m: {} for m in ("application/json", "text/csv", "image/png")},
+            "description": "the skill-by-lead curve (DESIGN section 5 shape for JSON)",
+        },
+        304: {"description": "not modified"},
+    },
+)
+def skill(
+    experiment_id: str,
+    request: Request,
+    store: StoreDep,
+    _: ReadAccess,
+    region: Annotated[str, Query(max_length=200)] = "all",
+    aggregation: Annotated[str, Query(max_length=50)] = "acc_of_region_mean",
+    format: Annotated[Literal["json", "csv", "png"], Query()] = "json",
+) -> Response:
+    """The skill-by-lead curve of a region and aggregation, as JSON, CSV or PNG."""
+    region = check_region_name(region)
+    if aggregation not in AGGREGATIONS:
+        raise ParameterError(
+            f"unknown aggregation {aggregation!r}; choose one of {', '.join(AGGREGATIONS)}",
+            aggregation=aggregation,
+            choices=list(AGGREGATIONS),
+        )
+    digest = repo.result_digest(store, experiment_id)  # 404 unknown, 409 not finished
+    key = f"{digest}:skill:{region}:{aggregation}.{EXTENSION[format]}"
+
+    def make() -> bytes:
+        curve = repo.load_result(store, experiment_id).curve(region, aggregation)
+        if format == "json":
+            return _json_bytes(curve)
+        if format == "csv":
+            from app.results.tables import curve_csv
+
+            return curve_csv(curve).encode("utf-8")
+        from app.results.figures import skill_png
+
+        return skill_png(curve)
+
+    name = f"{experiment_id}_skill_{_safe(region)}_{aggregation}.{EXTENSION[format]}"
+    return _serve(request, store, key=key, fmt=format, filename=name, make=make)
+
+
+@router.get(
+    "/v1/experiments/{experiment_id}/maps/{window}",
+    responses={
+        200: {"content": {"image/png": {}, "application/x-netcdf": {}}},
+        304: {"description": "not modified"},
+    },
+)
+def maps(
+    experiment_id: str,
+    window: str,
+    request: Request,
+    store: StoreDep,
+    _: ReadAccess,
+    field: Annotated[str | None, Query(max_length=50)] = None,
+    format: Annotated[Literal["png", "netcdf"], Query()] = "png",
+) -> Response:
+    """A map of one lead window: PNG of one field (default ``gain``) or CF NetCDF.
+
+    NetCDF without ``field`` holds every field of the window.
+    """
+    if field is not None and field not in MAP_FIELDS:
+        raise NotFoundError(
+            f"unknown map field {field!r}; choose one of {', '.join(MAP_FIELDS)}",
+            field=field,
+            choices=list(MAP_FIELDS),
+        )
+    chosen = field or ("gain" if format == "png" else "all")
+    digest = repo.result_digest(store, experiment_id)
+    key = f"{digest}:map:{window}:{chosen}.{EXTENSION[format]}"
+
+    def make() -> bytes:
+        result = repo.load_result(store, experiment_id)
+        if window not in result.window_labels:
+            raise NotFoundError(
+                f"unknown lead window {window!r}; choose one of {', '.join(result.window_labels)}",
+                window=window,
+                choices=result.window_labels,
+            )
+        if format == "png":
+            from app.results.figures import map_png
+
+            return map_png(result.maps, window=window, field=chosen)
+        return _netcdf_extract(store, result.maps, window=window, field=field)
+
+    name = f"{experiment_id}_{_safe(window)}_{chosen}.{EXTENSION[format]}"
+    return _serve(request, store, key=key, fmt=format, filename=name, make=make)
+
+
+def _netcdf_extract(store: Store, maps: Any, *, window: str, field: str | None) -> bytes:
+    """The window (kept as a length-1 ``window`` dim) as CF NetCDF bytes."""
+    import shutil
+
+    from app.results.provenance import history_line
+
+    ds = maps.sel(window=[window])
+    if field is not None:
+        ds = ds[[field]]
+    ds = ds.copy()
+    what = f"field {field}" if field else "all fields"
+    previous = str(maps.attrs.get("history", "")).rstrip("\n")
+    line = history_line(f"extracted lead window {window!r}, {what}, for the HTTP API")
+    ds.attrs["history"] = f"{previous}\n{line}" if previous else line
+    work = store.artifacts.temp_dir()
+    try:
+        path = work / "map.nc"
+        ds.to_netcdf(path, engine="netcdf4")
+        return path.read_bytes()
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+
+
+@router.get("/v1/experiments/{experiment_id}/conditional")
+def conditional(
+    experiment_id: str,
+    request: Request,
+    store: StoreDep,
+    _: ReadAccess,
+    region: Annotated[str, Query(max_length=200)] = "all",
+) -> Response:
+    """Gain by initial-land-anomaly stratum (dry, middle, wet terciles) and lead window."""
+    region = check_region_name(region)
+    digest = repo.result_digest(store, experiment_id)
+    key = f"{digest}:conditional:{region}.json"
+
+    def make() -> bytes:
+        return _json_bytes(repo.load_result(store, experiment_id).conditional(region))
+
+    name = f"{experiment_id}_conditional_{_safe(region)}.json"
+    return _serve(request, store, key=key, fmt="json", filename=name, make=make)
+
+
+_regions_cache: list[dict[str, Any]] | None = None
+
+
+@router.get("/v1/regions")
+def regions(request: Request, _: ReadAccess) -> Response:
+    """The regions a request may name: ``all`` and the offline reference regions."""
+    global _regions_cache
+    if _regions_cache is None:
+        _regions_cache = list_regions()
+    body = {
+        "regions": _regions_cache,
+        "patterns": {
+            "box": "box:LAT0,LAT1,LON0,LON1",
+            "polygon": "polygon:NAME (GeoJSON given when the experiment was created)",
+        },
+    }
+    data = _json_bytes(body)
+    headers = cache_headers(make_etag("regions", data.decode()), "private, max-age=3600")
+    cached = not_modified(request, headers)
+    if cached is not None:
+        return cached
+    return Response(data, media_type="application/json", headers=headers)
