@@ -1,15 +1,32 @@
-"""``landlift demo``: score the sample scenario end to end and show where the results are."""
+"""``landlift demo``: the sample scenario through the same path as the service.
+
+The four sample files are admitted as datasets exactly as uploads are (streamed into the
+artifact store, validated in a sandboxed child process, recorded in the database), the
+experiment is checked and queued as ``POST /v1/experiments`` does, and an in-process worker runs
+the job from the durable queue. The result is then read back from the store, printed, and its
+files and figures are written beside the database.
+"""
 
 from __future__ import annotations
 
 import sys
 from pathlib import Path
 
+SAMPLE_ROLES = {
+    "realistic": "hindcast",
+    "scrambled": "hindcast",
+    "observations": "observations",
+    "land_state": "land_state",
+}
+#: zones of the fictional continent (sample_data/README.md)
+BELT = "box:34,58,17,31"
+EAST = "box:34,58,32,43"
+
 
 def sample_files() -> dict[str, Path]:
     """The committed sample scenario (sample_data/ beside the package)."""
     root = Path(__file__).resolve().parent.parent / "sample_data"
-    files = {role: root / f"{role}.nc" for role in ("realistic", "scrambled", "observations", "land_state")}
+    files = {slot: root / f"{slot}.nc" for slot in SAMPLE_ROLES}
     missing = [str(p) for p in files.values() if not p.exists()]
     if missing:
         from app.errors import InputError
@@ -19,27 +36,57 @@ def sample_files() -> dict[str, Path]:
 
 
 def run_demo(*, data_dir: Path, resamples: int = 1000) -> int:
+    from app.api.ingest import ingest_file, submit_experiment
     from app.cli import CAUTION, write_outputs
-    from app.results.engine import ScoreOptions, score
+    from app.cube.engine import ScoreOptions
+    from app.jobs.worker import Worker
     from app.results.tables import curve_table
+    from app.settings import Settings
+    from app.store import Store, repo
 
     files = sample_files()
-    belt = "box:34,58,17,31"
-    east = "box:34,58,32,43"
-    options = ScoreOptions(regions=[belt, east], resamples=resamples, seed=1234).validate()
-    print(f"Scoring the sample scenario (fictional continent) from {files['realistic'].parent} ...")
-    result = score(
-        files["realistic"], files["scrambled"], files["observations"], files["land_state"],
-        options=options, experiment="sample-continent",
-    )
-    out = data_dir / "demo"
-    paths = write_outputs(result, out)
-    for region, name in (("all", "whole domain"), (belt, "semi-arid belt"), (east, "humid east")):
-        print(f"\n== {name} ==")
-        print(curve_table(result.curve(region)))
+    settings = Settings(data_dir=data_dir.resolve())
+    store = Store.open(settings, upgrade_schema=True)
+    try:
+        print(f"Sample scenario (a fictional continent) from {files['realistic'].parent}")
+        print(f"Store: {settings.url}")
+        ids: dict[str, str | None] = {}
+        for slot, role in SAMPLE_ROLES.items():
+            dataset, created = ingest_file(store, settings, files[slot], role=role)
+            ids[slot] = dataset["id"]
+            print(f"  dataset {dataset['id']}  {slot:<13} {'added' if created else 'already stored'}")
+        options = ScoreOptions(regions=[BELT, EAST], resamples=resamples, seed=1234).validate()
+        exp = submit_experiment(
+            store, name="sample-continent", datasets=ids, options=options,
+            parameters={"name": "sample-continent", **ids, "regions": [BELT, EAST]},
+        )
+        print(f"  experiment {exp['id']} queued as job {exp['job']['id']}; running it here ...")
+        Worker(store, name="demo").run(drain=True)
+        job = repo.get_job(store, exp["job"]["id"])
+        if job["status"] != "done":
+            print(f"landlift: error: the demo job ended {job['status']}: {job.get('error')}", file=sys.stderr)
+            return 1
+        result = repo.load_result(store, exp["id"])
+        for region, name in (("all", "whole domain"), (BELT, "semi-arid belt"), (EAST, "humid east")):
+            print(f"\n== {name} ==")
+            print(curve_table(result.curve(region)))
+        paths = write_outputs(result, data_dir / "demo")
+    finally:
+        store.close()
     print(f"\n{CAUTION}\n")
-    print("Results:")
+    print("Files:")
     for key, p in paths.items():
         print(f"  {key:<13} {p}")
+    base = "http://127.0.0.1:8000"
+    print(
+        "\nServe these results over HTTP:\n"
+        f"  LANDLIFT_DATA_DIR={data_dir} landlift token create --scope read --name me   # prints a token\n"
+        f"  LANDLIFT_DATA_DIR={data_dir} landlift serve --port 8000\n"
+        f"  dashboard  {base}/   (paste the token)\n"
+        f"  curve      curl -H 'Authorization: Bearer TOKEN' '{base}/v1/experiments/{exp['id']}/skill'\n"
+        f"  figure     {base}/v1/experiments/{exp['id']}/skill?format=png\n"
+        f"  gain map   {base}/v1/experiments/{exp['id']}/maps/week%203?field=gain&format=png\n"
+        f"  API docs   {base}/docs"
+    )
     sys.stdout.flush()
     return 0

@@ -10,6 +10,7 @@ from fastapi import APIRouter, Body, Request, Response
 from app.api.caching import RESULT_CACHE, cache_headers, make_etag, not_modified
 from app.api.deps import ReadAccess, SettingsDep, StoreDep, WriteAccess
 from app.api.errors import ApiError
+from app.api.ingest import NETCDF_MEDIA, admit_upload
 from app.api.paths import resolve_register_path
 from app.api.schemas import DatasetOut, RegisterIn
 from app.api.upload import receive_upload, sniff_format
@@ -19,7 +20,6 @@ from app.store import repo
 router = APIRouter(prefix="/v1/datasets", tags=["datasets"])
 
 ROLES = ("hindcast", "observations", "land_state")
-NETCDF_MEDIA = "application/x-netcdf"
 
 _UPLOAD_DOC = {
     "requestBody": {
@@ -80,59 +80,11 @@ async def upload_dataset(
         max_bytes=settings.max_upload_bytes,
     )
     try:
-        shown = upload.filename or "upload"
         role = _check_role(upload.fields.get("role"))
         variable = upload.fields.get("variable") or None
-        if upload.size == 0:
-            raise ApiError(422, "empty_file", f"file {shown} is empty", detail={"file": shown})
-        if sniff_format(upload.head) is None:
-            raise ApiError(
-                422,
-                "not_netcdf",
-                f"file {shown} is not NetCDF: it starts with neither a NetCDF classic "
-                "('CDF\\x01', 'CDF\\x02', 'CDF\\x05') nor an HDF5 signature",
-                detail={"file": shown, "first_bytes": upload.head[:8].hex()},
-            )
-        existing = await anyio.to_thread.run_sync(repo.find_dataset, store, upload.sha256)
-        if existing is not None:
-            if existing["role"] != role:
-                raise repo.ConflictError(
-                    f"these bytes are already dataset {existing['id']} with role "
-                    f"{existing['role']!r}, not {role!r}",
-                    dataset=existing["id"],
-                    role=existing["role"],
-                )
-            response.status_code = 200
-            response.headers["Location"] = f"/v1/datasets/{existing['id']}"
-            return existing
-        try:
-            description = await anyio.to_thread.run_sync(
-                lambda: validate_file(
-                    upload.path,
-                    role=role,
-                    variable=variable,
-                    timeout=settings.validation_timeout_seconds,
-                    memory_bytes=settings.validation_memory_bytes,
-                    display_name=shown,
-                )
-            )
-        except ValidationFailure as exc:
-            raise _failure(exc) from None
-
-        def _publish() -> tuple[dict[str, Any], bool]:
-            ref = upload.writer.commit()
-            return repo.create_dataset(
-                store,
-                role=role,
-                sha256=upload.sha256,
-                size_bytes=upload.size,
-                description=description,
-                source="upload",
-                artifact=ref,
-                filename=upload.filename,
-            )
-
-        dataset, created = await anyio.to_thread.run_sync(_publish)
+        dataset, created = await anyio.to_thread.run_sync(
+            lambda: admit_upload(store, settings, upload, role=role, variable=variable)
+        )
         response.status_code = 201 if created else 200
         response.headers["Location"] = f"/v1/datasets/{dataset['id']}"
         return dataset

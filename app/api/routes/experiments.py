@@ -10,8 +10,9 @@ from fastapi.responses import JSONResponse
 
 from app.api.caching import LIVE_CACHE, cache_headers, make_etag, not_modified
 from app.api.deps import ReadAccess, StoreDep, WriteAccess
+from app.api.ingest import submit_experiment
 from app.api.schemas import ExperimentIn, ExperimentOut, ExperimentPage, JobOut, JobStatus
-from app.errors import LandliftError, ParameterError
+from app.errors import ParameterError
 from app.store import repo
 
 if TYPE_CHECKING:
@@ -59,21 +60,6 @@ def _live(request: Request, payload: dict[str, Any], status: int = 200) -> Respo
     return Response(body, status_code=status, media_type="application/json", headers=headers)
 
 
-def _renamed(exc: LandliftError, names: dict[str, str]) -> LandliftError:
-    """The engine names stored files by their content address: name the datasets instead."""
-
-    def fix(value: Any) -> Any:
-        if isinstance(value, str):
-            for stored, shown in names.items():
-                value = value.replace(stored, shown)
-        return value
-
-    exc.message = fix(exc.message)
-    exc.detail = {k: fix(v) for k, v in exc.detail.items()}
-    exc.args = (exc.message,)
-    return exc
-
-
 def _options(body: ExperimentIn) -> ScoreOptions:
     from app.cube.engine import ScoreOptions  # the engine's imports are heavy: load on use
 
@@ -111,47 +97,11 @@ def create_experiment(
 ) -> JSONResponse:
     """Check that the datasets fit together, then queue the score job: 202 with the job."""
     options = _options(body)
-    ids = {slot: getattr(body, slot) for slot in SLOTS}
-    paths: dict[str, Any] = {}
-    names: dict[str, str] = {}
-    for slot, dataset_id in ids.items():
-        if dataset_id is None:
-            continue
-        dataset = repo.get_dataset(store, dataset_id)  # 404 for an unknown id
-        expected = repo.SLOT_ROLES[slot]
-        if dataset["role"] != expected:
-            raise ParameterError(
-                f"{slot} dataset {dataset_id!r} has role {dataset['role']!r}; the {slot} slot "
-                f"needs a {expected!r} dataset",
-                slot=slot,
-                dataset=dataset_id,
-                role=dataset["role"],
-                expected=expected,
-            )
-        paths[slot] = repo.dataset_path(store, dataset_id)
-        shown = dataset.get("filename") or dataset_id
-        names[paths[slot].name] = f"{shown} (dataset {dataset_id}, {slot})"
-    from app.cube.engine import check_inputs
-
-    try:
-        check_inputs(
-            paths["realistic"],
-            paths["scrambled"],
-            paths["observations"],
-            paths.get("land_state"),
-            variable=body.variable,
-            lead_windows=options.lead_windows,
-        )
-    except LandliftError as exc:
-        raise _renamed(exc, names) from None
-    exp = repo.create_experiment(
+    exp = submit_experiment(
         store,
         name=body.name,
-        realistic=body.realistic,
-        scrambled=body.scrambled,
-        observations=body.observations,
-        land_state=body.land_state,
-        options=options.to_dict(),
+        datasets={slot: getattr(body, slot) for slot in SLOTS},
+        options=options,
         parameters=body.model_dump(exclude_none=True),
     )
     view = experiment_view(exp)
