@@ -45,6 +45,8 @@ def test_commands_are_landlift_subcommands(compose: dict[str, Any]) -> None:
         if "command" not in service:
             continue
         argv = _command(service)
+        if argv[0] == "dask":
+            continue  # checked by test_dask_services
         assert argv[0] == "landlift", f"service {name} runs {argv[0]!r}, not landlift"
         try:
             args = parser.parse_args(argv[1:])
@@ -99,3 +101,28 @@ def test_api_port_and_shared_volumes(compose: dict[str, Any]) -> None:
         assert roots in mounts, f"{name} does not mount the data roots at {roots}"
     assert services["api"]["volumes"] == services["worker"]["volumes"]
     assert "/healthz" in " ".join(services["api"]["healthcheck"]["test"])
+
+
+def test_dask_services(compose: dict[str, Any]) -> None:
+    """The scheduler the workers name is the one compose starts; dask workers see the data."""
+    import shutil
+    import subprocess
+    import sys
+
+    services = compose["services"]
+    scheduler = _command(services["dask-scheduler"])
+    worker = _command(services["dask-worker"])
+    assert scheduler[:2] == ["dask", "scheduler"] and worker[:2] == ["dask", "worker"]
+    port = scheduler[scheduler.index("--port") + 1]
+    address = f"tcp://dask-scheduler:{port}"
+    assert worker[2] == address
+    assert services["worker"]["environment"]["LANDLIFT_DASK_SCHEDULER"] == address
+    assert services["dask-worker"]["volumes"] == services["worker"]["volumes"]
+    # both commands exist in the installed distributed package and accept these options
+    dask = shutil.which("dask", path=str(Path(sys.executable).parent))
+    assert dask is not None, "the dask command of distributed is not installed"
+    for argv in (scheduler, worker):
+        flags = [a for a in argv[2:] if a.startswith("--")]
+        helptext = subprocess.run([dask, argv[1], "--help"], capture_output=True, text=True, timeout=60).stdout
+        for flag in flags:
+            assert flag in helptext, f"`dask {argv[1]}` has no option {flag}"
