@@ -16,6 +16,7 @@ demo: $(STAMP)
 test: $(STAMP)
 	@bash scripts/ensure-chromium.sh
 	$(VENV)/bin/ruff check app tests benchmarks sample_data
+	$(VENV)/bin/mypy
 	$(PY) -m pytest -q
 
 lint: $(STAMP)
