@@ -281,7 +281,7 @@ def run(
         boot = Bootstrap(counts=counts, confidence=options.confidence, method=options.interval)  # type: ignore[arg-type]
         with TaskRunner(scheduler, threads=threads or min(2, os.cpu_count() or 1)) as runner:
             budget = task_budget(options.memory_budget, workers=1 if runner.distributed else runner.threads)
-            block = max(1, min(BLOCK_CELLS, budget // max(1, 64 * options.resamples * len(prep.windows))))
+            block = max(1, min(BLOCK_CELLS, budget // max(1, 160 * options.resamples * len(prep.windows))))
             source: Prepared | InputSpec = prep
             if runner.distributed:
                 source = InputSpec(

@@ -348,9 +348,7 @@ def _observed_windows(prep: Prepared, lat: slice, lon: slice) -> FloatArray:
     raw = prep.observations.read(lat=lat, lon=lon, convert=prep.to_units["observations"])
     dates = prep.observations.dates
     assert dates is not None
-    n_full = int((dates[-1] - dates[0]).astype(np.int64)) + 1
-    flat = np.full((n_full, raw.shape[1] * raw.shape[2]), np.nan)
-    flat[(dates - dates[0]).astype(np.int64)] = raw.reshape(raw.shape[0], -1)  # (day, cells)
+    flat = raw.reshape(raw.shape[0], -1)  # (observed day, cells): absent days are not filled in
     finite = np.isfinite(flat)
     csum = np.concatenate([np.zeros((1, flat.shape[1])), np.cumsum(np.where(finite, flat, 0.0), axis=0)])
     ccnt = np.concatenate([np.zeros((1, flat.shape[1])), np.cumsum(finite, axis=0)])
@@ -358,7 +356,9 @@ def _observed_windows(prep: Prepared, lat: slice, lon: slice) -> FloatArray:
     for k, w in enumerate(prep.windows):
         start = prep.obs_start[:, k]
         ok = start >= 0
-        s0, s1 = start[ok], start[ok] + w.days
+        first = dates[0] + start[ok].astype("timedelta64[D]")  # obs_start counts calendar days
+        s0 = np.searchsorted(dates, first)
+        s1 = np.searchsorted(dates, first + np.timedelta64(w.days - 1, "D"), side="right")
         total = csum[s1] - csum[s0]
         count = ccnt[s1] - ccnt[s0]
         with np.errstate(invalid="ignore", divide="ignore"):

@@ -65,7 +65,10 @@ class TaskRunner:
                 if progress is not None:
                     progress(i + 1, total)
             return results
-        with ThreadPoolExecutor(max_workers=self.threads) as pool:
+        from threadpoolctl import threadpool_limits
+
+        # one BLAS thread per task thread: OpenBLAS's own threads would spin against the pool's
+        with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(max_workers=self.threads) as pool:
             pending = {pool.submit(fn, *args): i for i, args in enumerate(items)}
             for fut in as_completed(pending):
                 results[pending[fut]] = fut.result()

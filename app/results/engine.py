@@ -30,11 +30,16 @@ def score(
     stream); missing ones are computed here. ``scheduler`` is a dask.distributed address; without
     it the work runs on a local thread pool.
     """
-    out = run(realistic, scrambled, observations, land_state, options=options, progress=progress, scheduler=scheduler)
     paths: dict[str, Any] = {"realistic": realistic, "scrambled": scrambled, "observations": observations}
     if land_state is not None:
         paths["land_state"] = land_state
-    known = input_sha256 or {}
+    known = dict(input_sha256 or {})
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=1) as pool:  # hashlib releases the GIL: hash while scoring
+        hashes = {role: pool.submit(sha256_of, p) for role, p in paths.items() if not known.get(role)}
+        out = run(realistic, scrambled, observations, land_state, options=options, progress=progress, scheduler=scheduler)
+        known.update({role: f.result() for role, f in hashes.items()})
     provenance = {
         "code_version": code_version(),
         "inputs_sha256": {role: known.get(role) or sha256_of(p) for role, p in paths.items()},

@@ -55,7 +55,9 @@ def skill_png(curve: dict[str, Any]) -> bytes:
         ("acc_scrambled", "tab:grey", "scrambled land starts", 0.08),
     ):
         v, lo, hi = series(key, "value"), series(key, "low"), series(key, "high")
-        top.errorbar(x + dx, v, yerr=[v - lo, hi - v], fmt="o-", color=colour, capsize=3, label=name)
+        # a biased bootstrap can put the point outside its interval: never draw negative bars
+        yerr = np.clip(np.nan_to_num([v - lo, hi - v]), 0.0, None)
+        top.errorbar(x + dx, v, yerr=yerr, fmt="o-", color=colour, capsize=3, label=name)
     top.axhline(0.0, color="black", lw=0.6)
     top.set_ylabel("anomaly correlation")
     top.legend(loc="best", fontsize=8)
@@ -69,7 +71,7 @@ def skill_png(curve: dict[str, Any]) -> bytes:
     p = series("gain", "p_value")
     sig = p < significance_level(curve["confidence"])
     bottom.bar(x, g, color=np.where(sig, "tab:blue", "lightsteelblue"), width=0.5)
-    bottom.errorbar(x, g, yerr=[g - lo, hi - g], fmt="none", ecolor="black", capsize=3)
+    bottom.errorbar(x, g, yerr=np.clip(np.nan_to_num([g - lo, hi - g]), 0.0, None), fmt="none", ecolor="black", capsize=3)
     bottom.axhline(0.0, color="black", lw=0.6)
     bottom.set_ylabel("gain (realistic - scrambled)")
     bottom.set_xticks(x, labels)

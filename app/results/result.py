@@ -283,8 +283,6 @@ def build_anomalies(out: RunOutput) -> xr.Dataset:
     coords["start_slot"] = xr.DataArray(list(out.slots), dims="start_slot", attrs={"long_name": "calendar day (MM-DD) of the start date"})
     coords["window"] = xr.DataArray([w.label for w in out.windows], dims="window")
     ds = xr.Dataset(data, coords=coords, attrs={"Conventions": "CF-1.8", "title": "landlift anomaly cube", "source": f"landlift {code_version()}"})
-    for v in ds.data_vars:
-        ds[v].encoding.update({"zlib": True, "complevel": 1})
     return ds
 
 

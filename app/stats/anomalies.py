@@ -49,12 +49,23 @@ def nanmean(values: FloatArray, *, axis: int | tuple[int, ...]) -> FloatArray:
 
 def ensemble_mean(values: NDArray[np.floating], *, axis: int) -> FloatArray:
     """NaN-aware mean over the member ``axis`` accumulated in float64, without a float64 copy
-    of the (often float32) input."""
-    x = np.asarray(values)
-    count = np.count_nonzero(~np.isnan(x), axis=axis)
-    total = np.nansum(x, axis=axis, dtype=np.float64)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(count > 0, total / count, np.nan)
+    of the (often float32) input: members are added one by one into a float64 total; only the
+    positions where the total is not finite (some member NaN or infinite) are recomputed NaN-aware."""
+    x = np.moveaxis(np.asarray(values), axis, 0)
+    total = np.zeros(x.shape[1:], dtype=np.float64)
+    for member in x:
+        total += member
+    bad = ~np.isfinite(total)
+    if bad.any():
+        sub = x[:, bad]
+        count = np.count_nonzero(~np.isnan(sub), axis=0)
+        sums = np.nansum(sub, axis=0, dtype=np.float64)
+        total[~bad] /= x.shape[0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            total[bad] = np.where(count > 0, sums / count, np.nan)
+        return total
+    total /= x.shape[0]
+    return total
 
 
 def window_means(values: FloatArray, lead_index: list[NDArray[np.int64]], *, axis: int) -> FloatArray:
