@@ -44,14 +44,16 @@ Load generators (all in a process of their own; the JSON line names the one used
     request (about 420 requests/s against the same trivial server), so it cannot show whether a
     server reaches 1,000 requests/s.
 ``wrk`` (``--generator wrk``; Debian package ``wrk``, not a project dependency)
-    a cross-check in C: ``wrk`` with a Lua script that stops each thread after its share of the requests and reports
-    the same percentiles from wrk's own histogram.
+    a cross-check in C: 2 threads, the same connections and headers, a Lua script that checks
+    every status and body length. wrk runs for a duration, not a request count: each measured
+    run lasts ``--wrk-seconds`` (after a 1 s warm-up run) and the line gives the requests made.
 
 ``server_cpu_ms_per_request`` is the steadiest figure on a shared machine: the load average
 changes the requests/s and the tail latency from run to run much more than the CPU per request.
 ``server_cpu_ceiling_rps`` = 1000 / it is the rate one free core could sustain.
 
-Run (about 1-2 minutes on 2 cores, most of it the demo's scoring)::
+Run (the demo takes 10-20 s; the 45,000 GETs about 4 minutes at the ~200 requests/s of the
+current server on 2 shared cores, under a minute at 2,000 requests/s)::
 
     .venv/bin/python benchmarks/api_reads.py
     .venv/bin/python benchmarks/api_reads.py --data-dir /tmp/ll-demo   # reuse / keep a demo
@@ -93,13 +95,13 @@ GENERATOR_DETAIL = {
     "each, separate process",
     "python-httpx": "httpx.AsyncClient, HTTP/1.1 keep-alive, limits={n} connections, separate "
     "process",
-    "wrk": "wrk, 2 threads, {n} connections, stopped after the request count by a Lua script",
+    "wrk": "wrk, 2 threads, {n} connections, a timed run, statuses checked by a Lua script",
 }
 TOKEN_ENV = "LANDLIFT_BENCH_TOKEN"
 
 
 class BenchTimeout(Exception):
-    """The hard ``--timeout`` of the whole benchmark ran out."""
+    """The hard ``--timeout`` of the whole benchmark ran out (or SIGTERM came)."""
 
 
 def log(message: str) -> None:
@@ -341,7 +343,6 @@ def load_generator_child(argv: list[str]) -> int:
 
 
 WRK_SCRIPT = r"""
-local limit = tonumber(os.getenv("WRK_REQUESTS_PER_THREAD"))
 local expect = tonumber(os.getenv("WRK_EXPECT_STATUS"))
 local expect_len = tonumber(os.getenv("WRK_EXPECT_LENGTH") or "-1")
 wrk.headers["Authorization"] = "Bearer " .. os.getenv("LANDLIFT_BENCH_TOKEN")
@@ -349,13 +350,9 @@ local inm = os.getenv("WRK_IF_NONE_MATCH")
 if inm and #inm > 0 then wrk.headers["If-None-Match"] = inm end
 local threads = {}
 function setup(thread) table.insert(threads, thread) end
-function init(args) done_count = 0; bad = 0 end
+function init(args) bad = 0 end
 function response(status, headers, body)
-  done_count = done_count + 1
-  if status ~= expect or (expect_len >= 0 and status == expect and #body ~= expect_len) then
-    bad = bad + 1
-  end
-  if done_count >= limit then wrk.thread:stop() end
+  if status ~= expect or (expect_len >= 0 and #body ~= expect_len) then bad = bad + 1 end
 end
 function done(summary, latency, requests)
   local bad_total = 0
@@ -372,46 +369,39 @@ end
 """
 
 
-def wrk_load(cfg: dict[str, Any], *, token: str, workdir: Path, timeout: float) -> dict[str, Any]:
-    """The same phase with ``wrk`` (2 threads): a warm-up run, then the measured run.
+def wrk_load(cfg: dict[str, Any], *, token: str, workdir: Path, timeout: float,
+             seconds: int) -> dict[str, Any]:
+    """One ``wrk`` run (2 threads) of ``seconds`` on the phase's request.
 
-    ``wrk`` stops each thread after its share of the requests; its ``-d`` duration is only the
-    upper bound. Its latency percentiles come from its own HdrHistogram (per request).
+    ``wrk`` runs for a duration, not a request count (its main thread sleeps ``-d`` whatever
+    the threads do), so the JSON line gives the requests it made. Latency percentiles come from
+    wrk's own histogram (per request).
     """
-    script = workdir / "bounded.lua"
+    script = workdir / "phase.lua"
     script.write_text(WRK_SCRIPT)
-    threads = 2
     env = dict(os.environ)
     env[TOKEN_ENV] = token
     env["WRK_EXPECT_STATUS"] = str(cfg["expect_status"])
-    env["WRK_EXPECT_LENGTH"] = str(cfg.get("expect_length") or -1)
+    env["WRK_EXPECT_LENGTH"] = str(cfg.get("expect_length", -1))
     env["WRK_IF_NONE_MATCH"] = cfg.get("headers", {}).get("If-None-Match", "")
     url = cfg["base_url"] + cfg["path"]
-    out: dict[str, Any] = {}
-    for count, measured in ((int(cfg["warmup"]), False), (int(cfg["requests"]), True)):
-        if count <= 0:
-            continue
-        env["WRK_REQUESTS_PER_THREAD"] = str(max(1, count // threads))
-        cmd = [
-            "wrk", f"-t{threads}", f"-c{cfg['concurrency']}", f"-d{int(timeout)}s",
-            "--timeout", f"{int(cfg['request_timeout'])}s", "-s", str(script), url,
-        ]
-        proc = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=timeout + 30)
-        if proc.returncode != 0:
-            raise RuntimeError(f"wrk failed ({proc.returncode}): {proc.stderr.strip()[-400:]}")
-        if measured:
-            line = [ln for ln in proc.stdout.splitlines() if ln.startswith("{")][-1]
-            raw = json.loads(line)
-            out = {
-                "requests": raw["requests"],
-                "wall_s": raw["wall_s"],
-                "statuses": {},
-                "errors": raw["errors"] + raw["socket_errors"],
-                "error_examples": [],
-                "latency_ms": {k: raw[k] for k in ("p50", "p90", "p99", "max", "mean")},
-                "generator_cpu_s": None,
-            }
-    return out
+    if seconds + 30 > timeout:
+        raise BenchTimeout("no time left for the wrk run")
+    cmd = ["wrk", "-t2", f"-c{cfg['concurrency']}", f"-d{seconds}s",
+           "--timeout", f"{int(cfg['request_timeout'])}s", "-s", str(script), url]
+    proc = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=seconds + 30)
+    if proc.returncode != 0:
+        raise RuntimeError(f"wrk failed ({proc.returncode}): {proc.stderr.strip()[-400:]}")
+    raw = json.loads([ln for ln in proc.stdout.splitlines() if ln.startswith("{")][-1])
+    return {
+        "requests": raw["requests"],
+        "wall_s": raw["wall_s"],
+        "statuses": {},
+        "errors": raw["errors"] + raw["socket_errors"],
+        "error_examples": [],
+        "latency_ms": {k: raw[k] for k in ("p50", "p90", "p99", "max", "mean")},
+        "generator_cpu_s": None,
+    }
 
 
 # ------------------------------------------------------------------------- server handling
@@ -569,10 +559,13 @@ def run_phase(
     log(f"phase {name}: {cfg['requests']} GETs of {cfg['path']} at {cfg['concurrency']} "
         f"connections ({generator})")
     load_before = os.getloadavg()[0]
+    if generator == "wrk":  # a 1 s warm-up run, outside the server CPU reading
+        wrk_load(cfg, token=token, workdir=workdir, timeout=deadline.left(), seconds=1)
     with Sampler(pid) as sampler:
         cpu0 = server_cpu_s(pid)
         if generator == "wrk":
-            raw = wrk_load(cfg, token=token, workdir=workdir, timeout=deadline.left())
+            raw = wrk_load(cfg, token=token, workdir=workdir, timeout=deadline.left(),
+                           seconds=int(cfg["wrk_seconds"]))
         else:
             env = dict(os.environ)
             env[TOKEN_ENV] = token
@@ -585,9 +578,9 @@ def run_phase(
             raw = json.loads(proc.stdout.strip().splitlines()[-1])
         cpu1 = server_cpu_s(pid)
     wall = float(raw["wall_s"])
-    # the server's CPU is read around the whole generator process (warm-up + measured run), so
-    # it is divided by all the requests it served in that time
-    served = int(raw["requests"]) + int(cfg["warmup"])
+    # the server's CPU is read around the whole generator process (with python-*: warm-up +
+    # measured run), so it is divided by all the requests it served in that time
+    served = int(raw["requests"]) + (int(cfg["warmup"]) if generator != "wrk" else 0)
     server_cpu = cpu1 - cpu0
     gen_cpu = raw.get("generator_cpu_s")
     result = {
@@ -649,13 +642,18 @@ def hard_timeout(seconds: float) -> Iterator[None]:
     def _alarm(_signum: int, _frame: object) -> None:
         raise BenchTimeout(f"the benchmark's hard timeout of {seconds:.0f} s ran out")
 
+    def _term(signum: int, _frame: object) -> None:
+        raise BenchTimeout(f"stopped by signal {signum}")
+
     previous = signal.signal(signal.SIGALRM, _alarm)
+    previous_term = signal.signal(signal.SIGTERM, _term)  # so that the server is stopped too
     signal.alarm(max(1, int(seconds)))
     try:
         yield
     finally:
         signal.alarm(0)
         signal.signal(signal.SIGALRM, previous)
+        signal.signal(signal.SIGTERM, previous_term)
 
 
 def run(args: argparse.Namespace) -> dict[str, Any]:
@@ -713,6 +711,7 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
                 "concurrency": args.concurrency,
                 "warmup": args.warmup,
                 "request_timeout": args.request_timeout,
+                "wrk_seconds": args.wrk_seconds,
             }
             phases_cfg = {
                 "json": {**common, "path": skill, "requests": args.requests,
@@ -734,7 +733,7 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
             out.update({
                 "generator": generator,
                 "generator_detail": GENERATOR_DETAIL[generator].format(n=args.concurrency),
-                "requests": args.requests,
+                "requests": main["requests"],
                 "concurrency": args.concurrency,
                 "requests_per_s": main["requests_per_s"],
                 "p50_ms": main["latency_ms"]["p50"],
@@ -795,6 +794,8 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
                    help="unrecorded GETs before each phase (default 500)")
     p.add_argument("--generator", choices=("python-raw", "python-httpx", "wrk"),
                    default="python-raw", help="load generator (default python-raw)")
+    p.add_argument("--wrk-seconds", type=int, default=10,
+                   help="with --generator wrk: seconds of each measured run (default 10)")
     p.add_argument("--port", type=int, default=0, help="server port (default: a free one)")
     p.add_argument("--resamples", type=int, default=1000, help="bootstrap resamples of the demo")
     p.add_argument("--request-timeout", type=float, default=30.0, help="per request, seconds")

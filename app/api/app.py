@@ -10,7 +10,7 @@ from fastapi.staticfiles import StaticFiles
 
 from app.api.errors import install_error_handlers
 from app.api.logs import log_request
-from app.api.metrics import Metrics, middleware
+from app.api.metrics import MeasureMiddleware, Metrics
 from app.api.routes import comparisons, datasets, experiments, ops, results, tokens
 from app.api.routes.ops import STATIC_DIR, version
 from app.settings import Settings
@@ -51,7 +51,7 @@ def create_app(settings: Settings, *, store: Store | None = None) -> FastAPI:
     app.state.metrics = metrics
 
     install_error_handlers(app)
-    app.middleware("http")(middleware(metrics, log_request))
+    app.add_middleware(MeasureMiddleware, metrics=metrics, log_request=log_request)
     for module in (ops, datasets, experiments, results, comparisons, tokens):
         app.include_router(module.router)
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")

@@ -22,11 +22,11 @@ from app.settings import Settings
 from app.store import Store, repo
 
 
-def get_store(request: Request) -> Store:
+async def get_store(request: Request) -> Store:
     return request.app.state.store  # type: ignore[no-any-return]
 
 
-def get_settings(request: Request) -> Settings:
+async def get_settings(request: Request) -> Settings:
     return request.app.state.settings  # type: ignore[no-any-return]
 
 
@@ -65,10 +65,39 @@ def _bearer(request: Request) -> str | None:
     return value.strip()
 
 
+#: verified tokens are remembered for a few seconds (a revocation takes effect
+#: within that time); unknown tokens are never cached
+TOKEN_CACHE_SECONDS = 5.0
+_token_cache: dict[tuple[str, str], tuple[float, dict]] = {}
+
+
+def forget_tokens() -> None:
+    _token_cache.clear()
+
+
+async def _verified(store: Store, token: str) -> dict | None:
+    import hashlib
+    import time
+
+    from starlette.concurrency import run_in_threadpool
+
+    key = (store.db.url, hashlib.sha256(token.encode()).hexdigest())
+    now = time.monotonic()
+    hit = _token_cache.get(key)
+    if hit is not None and hit[0] > now:
+        return hit[1]
+    info = await run_in_threadpool(repo.verify_token, store, token)
+    if info is not None:
+        if len(_token_cache) > 1024:
+            _token_cache.clear()
+        _token_cache[key] = (now + TOKEN_CACHE_SECONDS, info)
+    return info
+
+
 def require(scope: str) -> object:
     """A dependency that admits tokens of ``scope`` or higher (read < write < admin)."""
 
-    def _check(request: Request, store: StoreDep, settings: SettingsDep) -> Principal:
+    async def _check(request: Request, store: StoreDep, settings: SettingsDep) -> Principal:
         token = _bearer(request)
         if token is None:
             if scope == "read" and settings.public_read:
@@ -80,7 +109,7 @@ def require(scope: str) -> object:
                 detail={"required_scope": scope},
                 headers=_CHALLENGE,
             )
-        info = repo.verify_token(store, token)
+        info = await _verified(store, token)
         if info is None:
             raise ApiError(
                 401,

@@ -24,7 +24,7 @@ from typing import Any
 from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session, sessionmaker
-from sqlalchemy.pool import NullPool
+from sqlalchemy.pool import QueuePool
 
 #: execution option that marks a connection's transactions as writes (BEGIN IMMEDIATE on SQLite)
 WRITE_OPTION = "landlift_write"
@@ -57,8 +57,8 @@ def make_engine(url: str, *, busy_timeout_ms: int = DEFAULT_BUSY_TIMEOUT_MS, ech
         engine = create_engine(
             url,
             echo=echo,
-            # one connection per checkout avoids sharing a pysqlite connection between threads
-            poolclass=NullPool,
+            # pooled connections (each used by one thread at a time)
+            poolclass=QueuePool, pool_size=8, max_overflow=24,
             connect_args={"timeout": busy_timeout_ms / 1000.0, "check_same_thread": False},
         )
         _install_sqlite_hooks(engine, busy_timeout_ms=busy_timeout_ms)

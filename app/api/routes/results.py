@@ -11,6 +11,7 @@ from __future__ import annotations
 import json
 import re
 import threading
+from collections import OrderedDict
 from collections.abc import Callable
 from pathlib import Path
 from typing import Annotated, Any, Literal
@@ -39,8 +40,57 @@ EXTENSION = {"json": "json", "csv": "csv", "png": "png", "netcdf": "nc"}
 _derive_lock = threading.Lock()
 
 
+#: finished results are immutable: their digests and derived bytes stay in memory
+_digests: dict[tuple[int, str], str] = {}
+_bytes: OrderedDict[str, tuple[bytes, str]] = OrderedDict()
+_bytes_total = 0
+BYTES_CACHE_LIMIT = 64 << 20
+
+
+def _digest(store: Store, experiment_id: str) -> str:
+    key = (id(store), experiment_id)
+    found = _digests.get(key)
+    if found is None:
+        found = repo.result_digest(store, experiment_id)
+        if len(_digests) > 4096:
+            _digests.clear()
+        _digests[key] = found
+    return found
+
+
+_bytes_lock = threading.Lock()
+
+
+def _remember(key: str, data: bytes, media_type: str) -> None:
+    global _bytes_total
+    if len(data) > BYTES_CACHE_LIMIT // 8:
+        return
+    with _bytes_lock:
+        if key in _bytes:
+            return
+        _bytes[key] = (data, media_type)
+        _bytes_total += len(data)
+        while _bytes_total > BYTES_CACHE_LIMIT:
+            _, (old, _m) = _bytes.popitem(last=False)
+            _bytes_total -= len(old)
+
+
 def _safe(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9._-]+", "_", text).strip("_") or "x"
+
+
+def _serve_fast(request: Request, *, key: str, fmt: str, filename: str) -> Response | None:
+    """A 304, or the bytes from memory, without a thread hop; None when neither applies."""
+    headers = cache_headers(make_etag(key), RESULT_CACHE)
+    cached = not_modified(request, headers)
+    if cached is not None:
+        return cached
+    hit = _bytes.get(key)
+    if hit is None:
+        return None
+    disposition = "inline" if fmt in ("json", "png") else "attachment"
+    headers["Content-Disposition"] = f'{disposition}; filename="{filename}"'
+    return Response(hit[0], media_type=hit[1], headers=headers)
 
 
 def _serve(
@@ -56,6 +106,11 @@ def _serve(
     cached = not_modified(request, headers)
     if cached is not None:
         return cached
+    disposition = "inline" if fmt in ("json", "png") else "attachment"
+    headers["Content-Disposition"] = f'{disposition}; filename="{filename}"'
+    hit = _bytes.get(key)
+    if hit is not None:
+        return Response(hit[0], media_type=hit[1], headers=headers)
     found = repo.get_cached(store, key)
     if found is None:
         with _derive_lock:
@@ -65,11 +120,9 @@ def _serve(
                 path = repo.put_cached(store, key, data, media_type=MEDIA[fmt])
                 found = (path, MEDIA[fmt])
     path, media_type = found
-    disposition = "inline" if fmt in ("json", "png") else "attachment"
-    headers["Content-Disposition"] = f'{disposition}; filename="{filename}"'
-    # results are small (one curve, one window); reading them whole keeps 200 and 304 headers
-    # identical apart from the body's own (no Last-Modified from a file's mtime)
-    return Response(Path(path).read_bytes(), media_type=media_type, headers=headers)
+    data = Path(path).read_bytes()
+    _remember(key, data, media_type)
+    return Response(data, media_type=media_type, headers=headers)
 
 
 def _json_bytes(payload: Any) -> bytes:
@@ -86,7 +139,7 @@ def _json_bytes(payload: Any) -> bytes:
         304: {"description": "not modified"},
     },
 )
-def skill(
+async def skill(
     experiment_id: str,
     request: Request,
     store: StoreDep,
@@ -96,6 +149,8 @@ def skill(
     format: Annotated[Literal["json", "csv", "png"], Query()] = "json",
 ) -> Response:
     """The skill-by-lead curve of a region and aggregation, as JSON, CSV or PNG."""
+    from starlette.concurrency import run_in_threadpool
+
     region = check_region_name(region)
     if aggregation not in AGGREGATIONS:
         raise ParameterError(
@@ -103,8 +158,14 @@ def skill(
             aggregation=aggregation,
             choices=list(AGGREGATIONS),
         )
-    digest = repo.result_digest(store, experiment_id)  # 404 unknown, 409 not finished
+    digest = _digests.get((id(store), experiment_id))
+    if digest is None:
+        digest = await run_in_threadpool(_digest, store, experiment_id)
     key = f"{digest}:skill:{region}:{aggregation}.{EXTENSION[format]}"
+    name = f"{experiment_id}_skill_{_safe(region)}_{aggregation}.{EXTENSION[format]}"
+    fast = _serve_fast(request, key=key, fmt=format, filename=name)
+    if fast is not None:
+        return fast
 
     def make() -> bytes:
         curve = repo.load_result(store, experiment_id).curve(region, aggregation)
@@ -118,8 +179,9 @@ def skill(
 
         return skill_png(curve)
 
-    name = f"{experiment_id}_skill_{_safe(region)}_{aggregation}.{EXTENSION[format]}"
-    return _serve(request, store, key=key, fmt=format, filename=name, make=make)
+    return await run_in_threadpool(
+        lambda: _serve(request, store, key=key, fmt=format, filename=name, make=make)
+    )
 
 
 @router.get(
@@ -149,7 +211,7 @@ def maps(
             choices=list(MAP_FIELDS),
         )
     chosen = field or ("gain" if format == "png" else "all")
-    digest = repo.result_digest(store, experiment_id)
+    digest = _digest(store, experiment_id)
     key = f"{digest}:map:{window}:{chosen}.{EXTENSION[format]}"
 
     def make() -> bytes:
@@ -203,7 +265,7 @@ def conditional(
 ) -> Response:
     """Gain by initial-land-anomaly stratum (dry, middle, wet terciles) and lead window."""
     region = check_region_name(region)
-    digest = repo.result_digest(store, experiment_id)
+    digest = _digest(store, experiment_id)
     key = f"{digest}:conditional:{region}.json"
 
     def make() -> bytes:

@@ -6,7 +6,7 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Body
 
-from app.api.deps import AdminAccess, StoreDep
+from app.api.deps import AdminAccess, StoreDep, forget_tokens
 from app.api.schemas import TokenCreated, TokenIn, TokenOut
 from app.store import repo
 
@@ -31,4 +31,6 @@ def create_token(
 @router.delete("/{token_id}", response_model=TokenOut)
 def revoke_token(token_id: str, store: StoreDep, _: AdminAccess) -> dict[str, Any]:
     """Revoke a token: it stops working at once."""
-    return repo.revoke_token(store, token_id)
+    info = repo.revoke_token(store, token_id)
+    forget_tokens()  # this process stops honouring it at once; others within TOKEN_CACHE_SECONDS
+    return info
