@@ -17,7 +17,7 @@ from scipy import stats as sps
 
 BENCH_PATH = Path(__file__).resolve().parents[1] / "benchmarks" / "bootstrap_floor.py"
 
-TIME_FIELDS = ("bootstrap_s", "kernel_s", "floor_s", "unblocked_s_scaled", "naive_s", "naive_s_scaled")
+TIME_FIELDS = ("bootstrap_s", "bootstrap_pool_s", "kernel_s", "floor_s", "unblocked_s_scaled", "naive_s", "naive_s_scaled")
 
 
 @pytest.fixture(scope="module")
@@ -80,6 +80,12 @@ def test_figures_have_every_field_with_sane_values(tiny: dict) -> None:
     assert tiny["numpy"] == np.__version__
     assert tiny["cpu_count"] >= 1
     assert all(k.startswith(("OPENBLAS_", "OMP_")) for k in tiny["env"])
+    assert set(tiny["others_cpu_share"]) == {"bootstrap", "bootstrap_pool", "kernel", "floor", "naive"}
+    assert tiny["bootstrap_pool_s"] > 0.0 and tiny["pool_threads"] >= 1
+    assert tiny["ratio_to_floor_pool"] == pytest.approx(
+        tiny["bootstrap_pool_s"] / tiny["floor_s"], rel=1e-3
+    )
+    assert all(v is None or 0.0 <= v <= 1.0 for v in tiny["others_cpu_share"].values())
     json.dumps(tiny)  # one JSON-serialisable record
 
 
@@ -115,3 +121,18 @@ def test_synthetic_case_scores_like_scipy(bench: ModuleType) -> None:
         r2 = sps.pearsonr(cube.scrambled[:, :, w, c].ravel(), obs).statistic
         assert res.acc_realistic[w, c] == pytest.approx(r1, abs=1e-12)
         assert res.acc_scrambled[w, c] == pytest.approx(r2, abs=1e-12)
+
+
+def test_pool_run_gives_the_serial_results(bench: ModuleType) -> None:
+    """The thread-pool timing stage computes what assess_cells computes (same resampled years)."""
+    from app.cube.assess import assess_cells
+
+    cube, weights = bench.build_case(years=6, starts=3, windows=2, cells=50, seed=2)
+    boot = bench.make_bootstrap(6, resamples=25, seed=2)
+    serial = assess_cells(cube, boot, weights, block_cells=16)
+    pooled = bench.assess_cells_on_pool(cube, boot, weights, threads=2, block_cells=16)
+    for name in ("acc_realistic", "acc_scrambled", "gain_low", "gain_high", "p_value"):
+        np.testing.assert_array_equal(getattr(pooled, name), getattr(serial, name))
+    np.testing.assert_allclose(
+        pooled.region_mean[0].gain.low, serial.region_mean[0].gain.low, rtol=0, atol=1e-12
+    )

@@ -42,15 +42,18 @@ def resampled_correlations(
         raise ValueError(f"counts must be (n_resamples, {n_years}), got {counts.shape}")
     n_res = counts.shape[0]
     step = block or column_block(n_res)
-    r1 = np.empty((n_res, n_cols))
-    r2 = np.empty((n_res, n_cols))
+    # the draws are stored column by column ((n_columns, B) in memory, returned as (B, n_columns)
+    # views), so that each column's resamples are contiguous for the interval's partitions
+    r1t = np.empty((n_cols, n_res))
+    r2t = np.empty((n_cols, n_res))
+    counts_t = np.ascontiguousarray(counts.T)
     for start in range(0, n_cols, step):
         stop = min(n_cols, start + step)
         width = stop - start
         block_sums = yearly[:, :, start:stop].reshape(n_years, N_STATS * width)
-        res = (counts @ block_sums).reshape(n_res, N_STATS, width)
-        _correlate_into(res, r1[:, start:stop], r2[:, start:stop])
-    return r1, r2
+        res = (block_sums.T @ counts_t).reshape(N_STATS, width, n_res)  # contiguous (stat, col, B)
+        _correlate_into(res.transpose(2, 0, 1), r1t[start:stop].T, r2t[start:stop].T)
+    return r1t.T, r2t.T
 
 
 def matrix_product_floor(yearly: FloatArray, counts: FloatArray, *, block: int | None = None) -> None:

@@ -87,6 +87,8 @@ def bootstrap_interval(
     """
     tail = tail_level(confidence, n_blocks=n_blocks, method=method)
     d = np.asarray(draws, dtype=np.float64)
+    if d.ndim >= 2 and d.shape[0] > 0 and np.isfinite(d).all():
+        return _interval_all_finite(d, tail=tail, n_blocks=n_blocks, method=method)
     finite = np.isfinite(d)
     n_fin = finite.sum(axis=0)
     low = _lower_order_statistic(np.where(finite, d, np.inf), n_fin, tail)
@@ -101,6 +103,22 @@ def bootstrap_interval(
         high=np.where(empty, np.nan, high),
         p_value=np.where(empty, np.nan, p),
     )
+
+
+def _interval_all_finite(d: FloatArray, *, tail: float, n_blocks: int, method: IntervalMethod) -> Interval:
+    """The usual case, no degenerate resample: the same order statistics by partitions in the
+    draws' own memory layout (contiguous per column when they come from the bootstrap kernel)."""
+    n = d.shape[0]
+    k = min(max(int(np.ceil(tail * n - 1e-9)), 1) - 1, n - 1)  # as in _lower_order_statistic
+    below = np.count_nonzero(d <= 0.0, axis=0) / n
+    above = np.count_nonzero(d >= 0.0, axis=0) / n
+    p = alpha_of_tail(np.minimum(below, above), n_blocks=n_blocks, method=method)
+    work = d.copy(order="K")
+    work.partition(k, axis=0)
+    low = work[k].copy()
+    work.partition(n - 1 - k, axis=0)  # the (n-1-k)-th smallest of d is minus the k-th of -d
+    high = work[n - 1 - k].copy()
+    return Interval(low=low, high=high, p_value=p)
 
 
 def _lower_order_statistic(d: FloatArray, n_fin: NDArray[np.int_], tail: float) -> FloatArray:
