@@ -78,10 +78,13 @@ def run_demo(*, data_dir: Path, resamples: int = 1000) -> int:
     for key, p in paths.items():
         print(f"  {key:<13} {p}")
     base = "http://127.0.0.1:8000"
+    import shutil
+
+    cmd = "landlift" if shutil.which("landlift") else (sys.argv[0] if sys.argv[0].endswith("landlift") else ".venv/bin/landlift")
     print(
         "\nServe these results over HTTP:\n"
-        f"  LANDLIFT_DATA_DIR={data_dir} landlift token create --scope read --name me   # prints a token\n"
-        f"  LANDLIFT_DATA_DIR={data_dir} landlift serve --port 8000\n"
+        f"  LANDLIFT_DATA_DIR={data_dir} {cmd} token create --scope read --name me   # prints a token\n"
+        f"  LANDLIFT_DATA_DIR={data_dir} {cmd} serve --port 8000\n"
         f"  dashboard  {base}/   (paste the token)\n"
         f"  curve      curl -H 'Authorization: Bearer TOKEN' '{base}/v1/experiments/{exp['id']}/skill'\n"
         f"  figure     {base}/v1/experiments/{exp['id']}/skill?format=png\n"
