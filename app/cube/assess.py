@@ -229,7 +229,7 @@ def assess_cells(
     boot: Bootstrap,
     weights: FloatArray,
     *,
-    block_cells: int = 512,
+    block_cells: int = 256,
     progress: Callable[[float], None] | None = None,
 ) -> CellResults:
     """Bootstrap every cell once (in blocks, here in this process); maps and region means.

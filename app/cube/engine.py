@@ -313,7 +313,7 @@ def run(
     return out
 
 
-BLOCK_CELLS = 512
+BLOCK_CELLS = 256
 #: share of the memory budget left to tile tasks; the rest holds the interpreter, the libraries,
 #: the assembled anomaly cube and the maps (a fresh process with numpy, xarray, netCDF4 and dask
 #: imported is some 250 MB)
