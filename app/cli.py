@@ -168,8 +168,11 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    return dispatch(build_parser().parse_args(argv))
+
+
+def dispatch(args: argparse.Namespace) -> int:
+    """Run a parsed command; domain and settings errors become a message and exit code 2."""
     try:
         return int(args.func(args) or 0)
     except LandliftError as exc:

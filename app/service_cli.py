@@ -238,19 +238,11 @@ def add_service_commands(subparsers: Any) -> None:
 
 def main(argv: Sequence[str] | None = None) -> int:
     """``python -m app.service_cli``: the service commands on their own."""
-    from app.errors import LandliftError
+    from app.cli import dispatch
 
     parser = argparse.ArgumentParser(prog="landlift", description="landlift service commands")
     add_service_commands(parser.add_subparsers(dest="command", required=True))
-    args = parser.parse_args(argv)
-    try:
-        return int(args.func(args) or 0)
-    except LandliftError as exc:
-        print(f"landlift: error: {exc.message}", file=sys.stderr)
-        return 2
-    except ValueError as exc:  # settings validation
-        print(f"landlift: error: {exc}", file=sys.stderr)
-        return 2
+    return dispatch(parser.parse_args(argv))
 
 
 if __name__ == "__main__":
