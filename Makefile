@@ -17,11 +17,13 @@ test: $(STAMP)
 	@bash scripts/ensure-chromium.sh
 	$(VENV)/bin/ruff check app tests benchmarks sample_data
 	$(VENV)/bin/mypy
+	$(VENV)/bin/lint-imports
 	$(PY) -m pytest -q
 
 lint: $(STAMP)
 	$(VENV)/bin/ruff check app tests benchmarks sample_data
 	$(VENV)/bin/mypy
+	$(VENV)/bin/lint-imports
 
 bench: $(STAMP)
 	$(PY) benchmarks/bootstrap_floor.py

@@ -1,8 +1,11 @@
 """Domain errors shared by every layer.
 
 Each error carries a machine-readable ``code``, a human ``message`` that names the bad value and,
-where there is one, the valid choices, and a JSON-able ``detail``. The web layer maps them to HTTP
-in one handler; the CLI prints the message and exits non-zero.
+where there is one, the valid choices, a JSON-able ``detail`` and the HTTP status it stands for.
+The web layer maps them to HTTP in one handler; the CLI prints the message and exits 2.
+
+A class gives the usual code and status of its kind; one raise may name a more precise code
+(``InputError("is empty", file=..., code="empty_file")``) without a class of its own.
 """
 
 from __future__ import annotations
@@ -16,9 +19,22 @@ class LandliftError(ValueError):
     code = "error"
     http_status = 400
 
-    def __init__(self, message: str, **detail: Any) -> None:
+    def __init__(
+        self,
+        message: str,
+        *,
+        code: str | None = None,
+        http_status: int | None = None,
+        headers: dict[str, str] | None = None,
+        **detail: Any,
+    ) -> None:
         super().__init__(message)
         self.message = message
+        if code is not None:
+            self.code = code
+        if http_status is not None:
+            self.http_status = http_status
+        self.headers = dict(headers or {})
         self.detail = {k: v for k, v in detail.items() if v is not None}
 
 
@@ -54,3 +70,39 @@ class NotFoundError(LandliftError):
 
     code = "not_found"
     http_status = 404
+
+
+class ConflictError(LandliftError):
+    """The request conflicts with stored state (e.g. same bytes posted with another role)."""
+
+    code = "conflict"
+    http_status = 409
+
+
+class ResultNotReady(LandliftError):
+    """The experiment (or comparison) exists but its job has not finished successfully."""
+
+    code = "not_ready"
+    http_status = 409
+
+
+class RefusedError(LandliftError):
+    """A request the service will not carry out (a path outside the data roots, a file that
+    makes the HDF5 library open another file)."""
+
+    code = "refused"
+    http_status = 422
+
+
+class TooLargeError(LandliftError):
+    """More bytes, cells or items than a configured limit allows."""
+
+    code = "payload_too_large"
+    http_status = 413
+
+
+class BusyError(LandliftError):
+    """The service is at a configured concurrency limit; the client should retry later."""
+
+    code = "busy"
+    http_status = 503

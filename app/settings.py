@@ -1,5 +1,8 @@
 """Service settings: one validated class, read from ``LANDLIFT_*`` environment variables.
 
+This is the only place that reads a ``LANDLIFT_*`` variable: the CLI, the API and the workers
+build a ``Settings`` and pass its values on as arguments.
+
 ``Settings()`` reads the environment (and keyword arguments, which win); every value is checked
 when the object is built, so a bad setting stops the server or worker at start with a message
 that names the variable, the bad value and what is accepted.
@@ -10,12 +13,12 @@ from __future__ import annotations
 import os
 import re
 from pathlib import Path
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from pydantic import Field, field_validator, model_validator
 from pydantic_settings import BaseSettings, NoDecode, SettingsConfigDict
 
-from app.sizes import parse_size  # noqa: E402  (re-exported)
+from app.sizes import MIN_MEMORY_BUDGET, parse_size  # (parse_size re-exported)
 
 __all__ = ["Settings", "parse_size"]
 
@@ -67,6 +70,11 @@ class Settings(BaseSettings):
     validation_memory_bytes: int = Field(
         default=2 * 1024**3, description="Address-space limit of the upload validation process."
     )
+    validation_fault: Literal["", "abort", "segfault", "sleep", "allocate"] = Field(
+        default="",
+        description="Test hook: make every validation child crash, hang or over-allocate "
+        "(the fault tests prove that the server survives it). Leave empty.",
+    )
 
     @field_validator("data_dir", mode="after")
     @classmethod
@@ -112,6 +120,11 @@ class Settings(BaseSettings):
             size = getattr(self, name)
             if size is not None and size <= 0:
                 raise ValueError(f"{name} = {size} must be a positive number of bytes")
+        if self.memory_budget is not None and self.memory_budget < MIN_MEMORY_BUDGET:
+            raise ValueError(
+                f"memory_budget = {self.memory_budget} bytes is below the minimum of "
+                f"{MIN_MEMORY_BUDGET} (16MiB)"
+            )
         for name in (
             "lease_seconds",
             "heartbeat_seconds",

@@ -49,3 +49,8 @@ def parse_size(value: str | int | float) -> int:
     if size <= 0:
         raise ValueError(f"size {value!r} must be positive")
     return size
+
+
+#: smallest memory budget a run accepts (the interpreter and libraries alone are ~250 MB, but
+#: tile planning stays meaningful down to this)
+MIN_MEMORY_BUDGET = 16 * 1024**2

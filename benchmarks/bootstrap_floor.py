@@ -167,7 +167,7 @@ def _cell_block_task(cube: Cube, cells: NDArray[np.int64], boot: Bootstrap, weig
 def assess_cells_on_pool(
     cube: Cube, boot: Bootstrap, weights: FloatArray, *, threads: int, block_cells: int = BLOCK_CELLS
 ) -> CellResults:
-    """What ``app.cube.engine.run`` does with the blocks: ``block_stats`` on the engine's
+    """What ``app.cube.pipeline.run`` does with the blocks: ``block_stats`` on the engine's
     :class:`TaskRunner` thread pool (one BLAS thread per task thread), then ``combine_blocks``."""
     blocks = cell_blocks(weights, cube.n_cells, block_cells=block_cells)
     with TaskRunner(None, threads=threads) as runner:

@@ -9,12 +9,12 @@ synthetic pair written by ``synthetic_pair.py`` (float32, uncompressed, whole-ro
 * resamples 100, 1000, 10000.
 
 ``run_s`` / ``run_cpu_s`` are the wall-clock and the process CPU time of
-:func:`app.cube.engine.run` in this process (open and check the inputs, the tile-by-tile
+:func:`app.cube.pipeline.run` in this process (open and check the inputs, the tile-by-tile
 reduction and the per-cell bootstrap on the local thread pool of two threads, field significance,
 regional curves and strata; no checksums, no output files); the repeat with the least CPU time of
 ``--repeats`` is kept. The resamples series runs on one thread and splits the run into
 ``boot_s`` / ``boot_cpu_s``, the time spent in the engine's bootstrap steps (``block_stats`` of
-every block of cells, ``combine_blocks``, and ``_finish``: regional curves and strata, each
+every block of cells, ``combine_blocks``, and the last step: field significance, regional curves and strata, each
 bootstrapped), and ``reduce_cpu_s``, the rest (reading and reducing the tiles to anomalies).
 
 Each series gets a growth exponent fitted to its CPU times (least-squares slope of log time on
@@ -52,8 +52,9 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import synthetic_pair as sp  # noqa: E402
 
-from app.cube import engine  # noqa: E402
-from app.cube.engine import ScoreOptions  # noqa: E402
+from app.cube import pipeline, tiles  # noqa: E402
+from app.runs.options import RunOptions, validated  # noqa: E402
+from app.runs.scoring import run_engine  # noqa: E402
 
 BASE = sp.Layout(years=15, starts=4, members=5, leads=28, n_lat=24, n_lon=32)
 QUICK = sp.Layout(years=15, starts=2, members=3, leads=28, n_lat=4, n_lon=8)
@@ -77,17 +78,24 @@ class _Clock:
     measuring). The CPU time is the process's: with one task thread it includes the BLAS
     library's own threads, which work for the bootstrap's matrix products."""
 
-    NAMES = ("block_stats", "combine_blocks", "_finish")
+    #: where the engine looks the bootstrap parts up (module, name)
+    NAMES = (
+        (tiles, "block_stats"),
+        (pipeline, "combine_blocks"),
+        (pipeline, "significant_cells"),
+        (pipeline, "estimate_series"),
+        (pipeline, "estimate_strata"),
+    )
 
     def __init__(self) -> None:
         self.seconds = 0.0
         self.cpu_seconds = 0.0
-        self._saved: dict[str, Any] = {}
+        self._saved: dict[tuple[Any, str], Any] = {}
 
     def __enter__(self) -> _Clock:
-        for name in self.NAMES:
-            fn = self._saved[name] = getattr(engine, name)
-            setattr(engine, name, self._timed(fn))
+        for module, name in self.NAMES:
+            fn = self._saved[(module, name)] = getattr(module, name)
+            setattr(module, name, self._timed(fn))
         return self
 
     def _timed(self, fn: Any) -> Any:
@@ -102,8 +110,8 @@ class _Clock:
         return wrapper
 
     def __exit__(self, *exc: object) -> None:
-        for name, fn in self._saved.items():
-            setattr(engine, name, fn)
+        for (module, name), fn in self._saved.items():
+            setattr(module, name, fn)
 
 
 def measure(folder: Path, layout: sp.Layout, *, resamples: int, repeats: int, bootstrap: bool) -> dict[str, float]:
@@ -112,13 +120,13 @@ def measure(folder: Path, layout: sp.Layout, *, resamples: int, repeats: int, bo
     paths = sp.write_pair(case, layout)
     try:
         files = [paths[r] for r in sp.ROLES]
-        options = ScoreOptions(resamples=resamples, memory_budget=1 << 30)
+        options = validated(RunOptions, {"bootstrap": {"resamples": resamples}})
         best: dict[str, float] = {}
         for _ in range(repeats):
             with _Clock() as clock:
                 t0, c0 = time.perf_counter(), time.process_time()
                 # one thread for the bootstrap series, so that the parts add up to the run
-                engine.run(*files, options=options, threads=1 if bootstrap else None)
+                run_engine(*files, options=options, memory_budget=1 << 30, threads=1 if bootstrap else None)
                 wall, cpu = time.perf_counter() - t0, time.process_time() - c0
             if not best or cpu < best["run_cpu_s"]:
                 best = {"run_s": wall, "run_cpu_s": cpu}

@@ -12,7 +12,7 @@ uncompressed, chunked along space). Two timings of the same files:
     imports, input checks, the tile-by-tile reduction, the bootstrap, the input checksums of the
     provenance, and writing skill.json, maps.nc, anomalies.nc and the figures.
 ``engine_s``
-    Only :func:`app.cube.engine.run` (reduction, bootstrap, assessment) in a child process: no
+    Only :func:`app.cube.pipeline.run` (reduction, bootstrap, assessment) in a child process: no
     start-up, checksums or output files.
 
 ``throughput_ratio = floor_s / score_s`` is the scoring throughput as a fraction of the floor's
@@ -87,12 +87,14 @@ def read_all(files: list[Path]) -> tuple[float, int]:
 
 
 def engine_child(argv: list[str]) -> int:
-    """``--engine-child BUDGET R S O [L]``: time app.cube.engine.run alone, print seconds."""
-    from app.cube.engine import ScoreOptions, parse_memory_budget, run
+    """``--engine-child BUDGET R S O [L]``: time app.cube.pipeline.run alone, print seconds."""
+    from app.runs.options import RunOptions
+    from app.runs.scoring import run_engine
+    from app.sizes import parse_size
 
     budget, *paths = argv
     t0 = time.perf_counter()
-    run(*paths, options=ScoreOptions(memory_budget=parse_memory_budget(budget)))
+    run_engine(*paths, options=RunOptions(), memory_budget=parse_size(budget))
     print(json.dumps({"engine_s": time.perf_counter() - t0}))
     return 0
 

@@ -134,17 +134,17 @@ def sample_paths() -> dict[str, Path]:
 @pytest.fixture(scope="session")
 def sample_options() -> object:
     """Default scoring options (1000 resamples, seed 1234) plus the belt and east boxes."""
-    from app.results.engine import ScoreOptions
+    from run_support import run_options
 
-    return ScoreOptions(regions=[SAMPLE_BELT, SAMPLE_EAST]).validate()
+    return run_options(regions=[SAMPLE_BELT, SAMPLE_EAST])
 
 
 @pytest.fixture(scope="session")
 def sample_result(sample_paths: dict[str, Path], sample_options: object) -> object:
     """The sample scenario scored once per session (do not add regions to it in a test)."""
-    from app.results.engine import score
+    from app.runs.scoring import score_files
 
-    return score(
+    return score_files(
         sample_paths["realistic"], sample_paths["scrambled"], sample_paths["observations"],
         sample_paths["land_state"], options=sample_options, experiment="sample-continent",
     )

@@ -1,6 +1,6 @@
 """Bad input (issue 2, item 7): a clear error naming the file, the variable and the problem.
 
-Every case runs twice: through the engine (``app.results.engine.score`` raises the domain error,
+Every case runs twice: through the engine (``app.runs.scoring.score_files`` raises the domain error,
 whose message is checked) and through ``landlift score`` (exit status 2, the message on standard
 error after ``landlift: error:``, and nothing written into the output folder). The CLI is called
 in-process through ``app.cli.main`` (the console script's entry point) for speed; one case also
@@ -18,10 +18,11 @@ from typing import Any
 
 import pytest
 from cf_factory import CasePaths
+from run_support import run_options
 
-from app.cli import main
+from app.cli.main import main
 from app.errors import InputError, LandliftError, NotFoundError, ParameterError
-from app.results.engine import ScoreOptions, score
+from app.runs.scoring import score_files
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -107,9 +108,8 @@ def _cli_args(bad: Bad) -> list[str]:
 @pytest.mark.parametrize("bad", CASES, ids=[c.id for c in CASES])
 def test_engine_raises_a_clear_error(bad: Bad, make_cf_case: Callable[..., CasePaths], tmp_path: Path) -> None:
     case = make_cf_case(**bad.changes)
-    options = ScoreOptions(**{"resamples": 50, **bad.options})
-    with pytest.raises(bad.error) as err:
-        score(*_paths(case, bad, tmp_path), options=options)
+    with pytest.raises(bad.error) as err:  # options are checked as they are built, data as read
+        score_files(*_paths(case, bad, tmp_path), options=run_options(**{"resamples": 50, **bad.options}))
     for fragment in bad.fragments:
         assert fragment in err.value.message, (fragment, err.value.message)
 

@@ -23,7 +23,7 @@ import pytest
 import xarray as xr
 from cf_factory import CasePaths, CaseSpec, write_case
 
-from app.cli import main
+from app.cli.main import main
 
 REPO = Path(__file__).resolve().parents[1]
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification, section 5.2

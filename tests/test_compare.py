@@ -6,11 +6,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from run_support import comparison_options, run_options
 from scipy import stats as sps
 
 from app.errors import ParameterError
-from app.results.compare import compare_results
-from app.results.engine import ScoreOptions, score
+from app.runs.compare import compare_experiments
+from app.runs.scoring import score_files
 from app.stats.signtest import random_walk_sign_test
 
 SAMPLE = Path(__file__).resolve().parent.parent / "sample_data"
@@ -18,16 +19,16 @@ SAMPLE = Path(__file__).resolve().parent.parent / "sample_data"
 
 @pytest.fixture(scope="module")
 def results() -> dict[str, object]:
-    opts = ScoreOptions(resamples=400, seed=7)
+    opts = run_options(resamples=400, seed=7)
     f = {r: SAMPLE / f"{r}.nc" for r in ("realistic", "scrambled", "observations")}
     # baseline: a "land scheme" whose realistic starts are no better than scrambled ones
-    baseline = score(f["scrambled"], f["scrambled"], f["observations"], options=opts, experiment="scheme A")
-    candidate = score(f["realistic"], f["scrambled"], f["observations"], options=opts, experiment="scheme B")
+    baseline = score_files(f["scrambled"], f["scrambled"], f["observations"], options=opts, experiment="scheme A")
+    candidate = score_files(f["realistic"], f["scrambled"], f["observations"], options=opts, experiment="scheme B")
     return {"a": baseline, "b": candidate}
 
 
 def test_candidate_with_real_land_starts_beats_baseline(results: dict) -> None:
-    cmp = compare_results(results["a"], results["b"], region="box:34,58,17,31", resamples=400, seed=7)
+    cmp = compare_experiments(results["a"], results["b"], options=comparison_options(region="box:34,58,17,31", resamples=400, seed=7))
     assert cmp["baseline"] == "scheme A" and cmp["candidate"] == "scheme B"
     week3 = next(w for w in cmp["windows"] if w["label"] == "week 3")
     assert week3["gain_baseline"] == pytest.approx(0.0, abs=1e-9)
@@ -42,7 +43,8 @@ def test_candidate_with_real_land_starts_beats_baseline(results: dict) -> None:
 
 
 def test_self_comparison_is_zero(results: dict) -> None:
-    cmp = compare_results(results["b"], results["b"], resamples=200)
+    cmp = compare_experiments(results["b"], results["b"], options=comparison_options(resamples=200))
+    assert [w["label"] for w in cmp["windows"]] == ["week 1", "week 2", "week 3", "week 4", "weeks 3-4"]
     for w in cmp["windows"]:
         assert w["gain_difference"]["value"] == 0.0
         assert w["gain_difference"]["low"] == 0.0 and w["gain_difference"]["high"] == 0.0
@@ -51,7 +53,8 @@ def test_self_comparison_is_zero(results: dict) -> None:
 
 
 def test_interval_and_p_value_agree(results: dict) -> None:
-    cmp = compare_results(results["a"], results["b"], resamples=400, confidence=0.9)
+    cmp = compare_experiments(results["a"], results["b"], options=comparison_options(resamples=400, confidence=0.9))
+    assert len(cmp["windows"]) == 5
     for w in cmp["windows"]:
         for key in ("gain_difference", "acc_realistic_difference"):
             d = w[key]
@@ -66,7 +69,7 @@ def test_different_observations_are_refused(results: dict, tmp_path: Path) -> No
     saved, b.meta = b.meta, other
     try:
         with pytest.raises(ParameterError, match="different observation files"):
-            compare_results(results["a"], b)
+            compare_experiments(results["a"], b, options=comparison_options())
     finally:
         b.meta = saved
 

@@ -1,4 +1,4 @@
-"""Opening and validating CF files (app.cube.datasets) and the tile reduction (app.cube.inputs).
+"""Opening and validating CF files (app.cube.sources) and the tile reduction (app.cube.inputs).
 
 Dims are found from CF ``standard_name`` attributes first, then from the accepted names of
 DESIGN section 2 (CF standard names: forecast_reference_time, realization, forecast_period,
@@ -15,11 +15,12 @@ import numpy as np
 import pytest
 import xarray as xr
 from cf_factory import CasePaths, CaseSpec, build_datasets, reference_anomalies
+from run_support import run_options
 
-from app.cube.datasets import check_not_all_nan, describe_dataset, open_source
-from app.cube.engine import ScoreOptions, run
 from app.cube.inputs import prepare, reduce_tile
+from app.cube.sources import check_not_all_nan, describe_dataset, open_source
 from app.errors import InputError
+from app.runs.scoring import run_engine
 
 
 def test_cf_dims_and_layout(cf_case: CasePaths) -> None:
@@ -55,9 +56,9 @@ def test_standard_names_find_dims_whatever_they_are_called(tmp_path: Path) -> No
 
 
 def test_alias_dim_names_score_like_cf_names(make_cf_case: Callable[..., CasePaths]) -> None:
-    options = ScoreOptions(resamples=30)
-    cf = run(*make_cf_case().engine_args(), options=options)
-    alias = run(*make_cf_case(dim_names="aliases").engine_args(), options=options)
+    options = run_options(resamples=30)
+    cf = run_engine(*make_cf_case().engine_args(), options=options)
+    alias = run_engine(*make_cf_case(dim_names="aliases").engine_args(), options=options)
     np.testing.assert_array_equal(alias.cells.acc_realistic, cf.cells.acc_realistic)
     np.testing.assert_array_equal(alias.lat, cf.lat)
 

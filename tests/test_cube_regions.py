@@ -18,17 +18,18 @@ import numpy as np
 import pytest
 import regionmask
 from cf_factory import CasePaths
+from run_support import run_options
 from shapely.geometry import Point, box
 
-from app.cube.engine import ScoreOptions, run
+from app.cli.score import read_geojson_region
 from app.cube.regions import (
     list_regions,
-    read_geojson_region,
     region_mask,
     region_weights,
     resolve_region,
 )
 from app.errors import NotFoundError, ParameterError
+from app.runs.scoring import run_engine
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -129,7 +130,7 @@ def test_unknown_region_lists_the_kinds_of_valid_names(name: str) -> None:
     assert repr(name) in msg
     assert "'all'" in msg and "box:LAT0,LAT1,LON0,LON1" in msg and "srex:" in msg
     with pytest.raises(NotFoundError):
-        ScoreOptions(regions=[name]).validate()
+        run_options(regions=[name]).scoring()  # names resolve once, when the run is planned
 
 
 def _square(lat0: float, lat1: float, lon0: float, lon1: float) -> dict:
@@ -158,7 +159,7 @@ def test_geojson_polygon_mapping_and_file(tmp_path: Path) -> None:
 
 def test_engine_scores_a_reference_region(make_cf_case: Callable[..., CasePaths]) -> None:
     case = make_cf_case(lat=(42.0, 47.0, 52.0, 57.0), lon=(5.0, 15.0, 25.0, 44.0))
-    out = run(*case.engine_args(), options=ScoreOptions(regions=["srex:CEU"], resamples=50))
+    out = run_engine(*case.engine_args(), options=run_options(regions=["srex:CEU"], resamples=50))
     assert [r.id for r in out.regions] == ["all", "srex:CEU"]
     srex = regionmask.defined_regions.srex
     expected = np.asarray(srex.mask(out.lon, out.lat).values == srex.map_keys("CEU"))

@@ -12,17 +12,13 @@ from collections.abc import Callable
 import numpy as np
 import pytest
 from cf_factory import CasePaths
+from run_support import run_options
 
-from app.cube.engine import ScoreOptions, run
 from app.cube.inputs import prepare
-from app.cube.windows import (
-    LeadWindow,
-    default_windows,
-    lead_indices,
-    parse_window,
-    windows_from_dicts,
-)
+from app.cube.windows import LeadWindow, default_windows, lead_indices
 from app.errors import InputError, ParameterError
+from app.runs.options import window_from_text
+from app.runs.scoring import run_engine
 
 BASE = [("week 1", 1, 7), ("week 2", 8, 14), ("week 3", 15, 21), ("week 4", 22, 28), ("weeks 3-4", 15, 28)]
 
@@ -62,7 +58,9 @@ def test_default_windows_need_a_week() -> None:
     ],
 )
 def test_parse_window(text: str, expected: tuple[str, int, int]) -> None:
-    w = parse_window(text)
+    options = run_options(lead_windows=[window_from_text(text)])
+    assert options.lead_windows is not None
+    w = options.lead_windows[0].window()
     assert (w.label, w.first_day, w.last_day) == expected
     assert w.days == expected[2] - expected[1] + 1
 
@@ -70,20 +68,20 @@ def test_parse_window(text: str, expected: tuple[str, int, int]) -> None:
 @pytest.mark.parametrize("text", ["week 2", "=8-14", "w=8", "w=8-", "w=a-b", "w=-3-5", "w=14-8", "w=0-7"])
 def test_parse_window_rejects(text: str) -> None:
     with pytest.raises(ParameterError) as err:
-        parse_window(text)
+        run_options(lead_windows=[window_from_text(text)])
     assert "window" in err.value.message
 
 
-def test_windows_from_dicts_checks() -> None:
-    assert windows_from_dicts(None) is None
-    ws = windows_from_dicts([{"label": "a", "first_day": 2, "last_day": 5}])
-    assert ws is not None and _triples(ws) == [("a", 2, 5)]
+def test_lead_window_options_are_checked() -> None:
+    assert run_options().lead_windows is None
+    ws = run_options(lead_windows=[{"label": "a", "first_day": 2, "last_day": 5}]).scoring().lead_windows
+    assert ws is not None and _triples(list(ws)) == [("a", 2, 5)]
     with pytest.raises(ParameterError, match="unique"):
-        windows_from_dicts([{"label": "a", "first_day": 1, "last_day": 2}] * 2)
-    with pytest.raises(ParameterError, match="empty"):
-        windows_from_dicts([])
-    with pytest.raises(ParameterError, match="needs label, first_day and last_day"):
-        windows_from_dicts([{"label": "a", "first_day": 1}])
+        run_options(lead_windows=[{"label": "a", "first_day": 1, "last_day": 2}] * 2)
+    with pytest.raises(ParameterError, match="at least 1 item"):
+        run_options(lead_windows=[])
+    with pytest.raises(ParameterError, match="last_day: Field required"):
+        run_options(lead_windows=[{"label": "a", "first_day": 1}])
 
 
 def test_lead_indices_positions_and_reach() -> None:
@@ -115,16 +113,16 @@ def test_engine_uses_the_default_windows_the_hindcast_reaches(
 @pytest.mark.parametrize("encoding", ["days_from_zero", "hours"])
 def test_lead_day_encodings_give_the_same_windows(make_cf_case: Callable[..., CasePaths], encoding: str) -> None:
     """Lead day d is the d-th day after init whether stored as 1..N days, 0..N-1 days or 24d hours."""
-    options = ScoreOptions(resamples=20)
-    plain = run(*make_cf_case().engine_args(), options=options)
-    other = run(*make_cf_case(lead_encoding=encoding).engine_args(), options=options)
+    options = run_options(resamples=20)
+    plain = run_engine(*make_cf_case().engine_args(), options=options)
+    other = run_engine(*make_cf_case(lead_encoding=encoding).engine_args(), options=options)
     np.testing.assert_array_equal(other.cube.realistic, plain.cube.realistic)
     np.testing.assert_array_equal(other.cells.acc_realistic, plain.cells.acc_realistic)
 
 
 def test_window_beyond_the_hindcast_is_an_input_error(cf_case: CasePaths) -> None:
-    options = ScoreOptions(lead_windows=[{"label": "late", "first_day": 22, "last_day": 35}], resamples=10)
+    options = run_options(lead_windows=[{"label": "late", "first_day": 22, "last_day": 35}], resamples=10)
     with pytest.raises(InputError) as err:
-        run(*cf_case.engine_args(), options=options)
+        run_engine(*cf_case.engine_args(), options=options)
     assert "realistic.nc" in err.value.message and "'late'" in err.value.message
     assert "beyond the hindcast" in err.value.message

@@ -1,7 +1,7 @@
 """Scoring on a real dask.distributed cluster equals scoring on the local thread pool.
 
 A ``distributed.LocalCluster`` with two worker processes (one thread each) runs the tile tasks of
-:func:`app.results.engine.score` on the committed sample scenario; every number of the result
+:func:`app.runs.scoring.score_files` on the committed sample scenario; every number of the result
 (skill.json curves, conditional tables, every variable of maps.nc and the float64 anomaly cube
 of anomalies.nc) must equal the local run's to 1e-12. The local run is the reference: the tile
 tasks need nothing from each other, so where they run may change only the order of additions.
@@ -25,10 +25,12 @@ from typing import Any
 import numpy as np
 import pytest
 import xarray as xr
+from run_support import run_options
 
-from app.cube.engine import plan_tiles, task_budget
 from app.cube.inputs import prepare
-from app.results.engine import ScoreOptions, score
+from app.cube.tiles import plan_tiles, task_budget
+from app.runs.options import RunOptions
+from app.runs.scoring import score_files
 
 distributed = pytest.importorskip("distributed")
 
@@ -48,15 +50,15 @@ def cluster() -> Iterator[Any]:
         yield c
 
 
-def _options() -> ScoreOptions:
-    return ScoreOptions(memory_budget=BUDGET, resamples=RESAMPLES, regions=["box:33.8,57.8,16.25,31.25"])
+def _options() -> RunOptions:
+    return run_options(resamples=RESAMPLES, regions=["box:33.8,57.8,16.25,31.25"])
 
 
 @pytest.fixture(scope="module")
 def local(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The reference: the local thread-pool run, saved."""
     out = tmp_path_factory.mktemp("local")
-    score(*FILES.values(), options=_options()).save(out)
+    score_files(*FILES.values(), options=_options(), memory_budget=BUDGET).save(out)
     return out
 
 
@@ -112,8 +114,8 @@ def _assert_same_results(a: Path, b: Path, *, atol: float = TOL) -> int:
 def test_cluster_equals_local_and_counts_real_tasks(cluster: Any, local: Path, tmp_path: Path) -> None:
     events: list[tuple[float, str]] = []
     before = _tile_tasks_done(cluster)
-    result = score(
-        *FILES.values(), options=_options(), scheduler=cluster.scheduler_address,
+    result = score_files(
+        *FILES.values(), options=_options(), scheduler=cluster.scheduler_address, memory_budget=BUDGET,
         progress=lambda fraction, message: events.append((fraction, message)),
     )
     ran = _tile_tasks_done(cluster) - before
@@ -137,9 +139,8 @@ def test_cluster_equals_local_and_counts_real_tasks(cluster: Any, local: Path, t
 
     # the comparison can fail: another seed resamples other years and moves the intervals
     other = tmp_path / "other_seed"
-    opts = _options()
-    opts.seed = 99
-    score(*FILES.values(), options=opts, scheduler=cluster.scheduler_address).save(other)
+    opts = run_options(resamples=RESAMPLES, seed=99, regions=["box:33.8,57.8,16.25,31.25"])
+    score_files(*FILES.values(), options=opts, scheduler=cluster.scheduler_address, memory_budget=BUDGET).save(other)
     with pytest.raises(AssertionError):
         _assert_same_results(local, other)
 
@@ -178,8 +179,8 @@ def test_zarr_input_equals_netcdf(cluster: Any, local: Path, tmp_path: Path) -> 
             np.testing.assert_allclose(b[var].values, a[var].values, rtol=0,
                                        atol=2 * float(np.spacing(np.float32(top))))
     out_local, out_cluster = tmp_path / "zarr_local", tmp_path / "zarr_cluster"
-    score(*stores.values(), options=_options()).save(out_local)
-    score(*stores.values(), options=_options(), scheduler=cluster.scheduler_address).save(out_cluster)
+    score_files(*stores.values(), options=_options(), memory_budget=BUDGET).save(out_local)
+    score_files(*stores.values(), options=_options(), scheduler=cluster.scheduler_address, memory_budget=BUDGET).save(out_cluster)
     # inputs that differ by float32 rounding (spacing 3.05e-5 at 290 K) give anomalies within a
     # few 1e-6 K and ACCs within about 3e-6 of the NetCDF ones (measured); 5e-5 is that spacing
     # with margin, still far below the 0.01 packing quantum of the files

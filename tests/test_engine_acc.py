@@ -7,7 +7,7 @@ explicit loop over years). The correlations come from ``scipy.stats.pearsonr`` a
 ``xskillscore.pearson_r``; regional means from xarray's ``DataArray.weighted(...).mean``.
 
 Precision: the files are float32; the engine and the references read the same float32 values and
-work in float64, so the float64 arrays of ``app.cube.engine.run`` agree to 1e-10. The maps of the
+work in float64, so the float64 arrays of ``app.cube.pipeline.run`` agree to 1e-10. The maps of the
 result (``ScoreResult.maps``) are stored as float32: 1e-6 there. Skill-curve JSON rounds to 6
 decimals: 1e-6 there as well.
 """
@@ -21,10 +21,11 @@ import pytest
 import xarray as xr
 import xskillscore as xs
 from cf_factory import CasePaths, CaseSpec, coslat_weights, paired, reference_anomalies, write_case
+from run_support import run_options
 from scipy.stats import pearsonr
 
-from app.cube.engine import RunOutput, ScoreOptions, run
-from app.results.engine import score
+from app.cube.pipeline import RunOutput
+from app.runs.scoring import run_engine, score_files
 
 FLOAT64_TOL = 1e-10
 FLOAT32_TOL = 1e-6
@@ -55,9 +56,9 @@ def cell_acc_xskillscore(anom: xr.Dataset, name: str) -> np.ndarray:
 def scored(tmp_path_factory: pytest.TempPathFactory) -> tuple[CasePaths, RunOutput, object, xr.Dataset]:
     """The clean synthetic case, run through both entry points once per module."""
     cf_case = write_case(tmp_path_factory.mktemp("acc"), CaseSpec())
-    options = ScoreOptions(regions=[BOX], resamples=200)
-    out = run(*cf_case.engine_args(), options=options)
-    result = score(*cf_case.engine_args(), options=options)
+    options = run_options(regions=[BOX], resamples=200)
+    out = run_engine(*cf_case.engine_args(), options=options)
+    result = score_files(*cf_case.engine_args(), options=options)
     return cf_case, out, result, reference_anomalies(cf_case)
 
 
@@ -98,7 +99,7 @@ def test_custom_windows_match_reference(make_cf_case: Callable[..., CasePaths]) 
     case = make_cf_case(n_leads=20)
     windows = [{"label": "days 3-10", "first_day": 3, "last_day": 10},
                {"label": "day 20", "first_day": 20, "last_day": 20}]
-    out = run(*case.engine_args(), options=ScoreOptions(lead_windows=windows, resamples=50))
+    out = run_engine(*case.engine_args(), options=run_options(lead_windows=windows, resamples=50))
     assert [w.label for w in out.windows] == ["days 3-10", "day 20"]
     anom = reference_anomalies(case, windows=windows)
     ref = cell_acc_scipy(anom, "realistic")

@@ -17,9 +17,10 @@ from collections.abc import Callable
 import numpy as np
 import pytest
 from cf_factory import CasePaths
+from run_support import run_options
 from statsmodels.stats.multitest import multipletests
 
-from app.results.engine import ScoreOptions, score
+from app.runs.scoring import score_files
 
 REGION = "box:42,51,11,16"
 
@@ -40,9 +41,9 @@ def _bounds(curves: list[dict]) -> list:
 
 
 def test_same_seed_identical_other_seed_moves_only_intervals(cf_case: CasePaths) -> None:
-    a = score(*cf_case.engine_args(land=True), options=ScoreOptions(regions=[REGION], resamples=300, seed=11))
-    b = score(*cf_case.engine_args(land=True), options=ScoreOptions(regions=[REGION], resamples=300, seed=11))
-    c = score(*cf_case.engine_args(land=True), options=ScoreOptions(regions=[REGION], resamples=300, seed=12))
+    a = score_files(*cf_case.engine_args(land=True), options=run_options(regions=[REGION], resamples=300, seed=11))
+    b = score_files(*cf_case.engine_args(land=True), options=run_options(regions=[REGION], resamples=300, seed=11))
+    c = score_files(*cf_case.engine_args(land=True), options=run_options(regions=[REGION], resamples=300, seed=12))
     assert a.skill_json() == b.skill_json()
     for field in a.maps.data_vars:
         np.testing.assert_array_equal(a.maps[field].values, b.maps[field].values, err_msg=str(field))
@@ -99,7 +100,7 @@ def test_interval_p_value_and_fdr_agree_on_a_synthetic_case(
     p = 0.05 there, so the 95 % interval must include 0 (its lower bound is the 10th smallest
     draw, the inverted-CDF quantile at 0.025)."""
     case = make_cf_case(lat=(40.0, 44.0, 48.0, 52.0), lon=(10.0, 12.0, 14.0, 16.0, 18.0), nan_obs=0.05)
-    result = score(*case.engine_args(), options=ScoreOptions(
+    result = score_files(*case.engine_args(), options=run_options(
         regions=[REGION], resamples=400, interval=interval, confidence=confidence, fdr_alpha=0.2, seed=3,
     ))
     assert _check_curve_agreement(result.curves) == 4 * 5
@@ -142,10 +143,10 @@ def test_interval_at_the_exact_tail_boundary(make_cf_case: Callable[..., CasePat
     which is <= 0 here, and p = 2 * 10 / 400 = 0.05: the interval includes 0, p is not below 0.05.
     The draws are recomputed here with numpy from the run's anomaly cube and count matrix.
     """
-    from app.cube.engine import run
+    from app.runs.scoring import run_engine
 
     case = make_cf_case(lat=(40.0, 44.0, 48.0, 52.0), lon=(10.0, 12.0, 14.0, 16.0, 18.0), nan_obs=0.05)
-    out = run(*case.engine_args(), options=ScoreOptions(resamples=400, interval="percentile", seed=3))
+    out = run_engine(*case.engine_args(), options=run_options(resamples=400, interval="percentile", seed=3))
     c = out.cube
     boundary = []
     for w in range(c.n_windows):

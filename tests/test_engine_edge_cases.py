@@ -14,9 +14,10 @@ from collections.abc import Callable
 import numpy as np
 import pytest
 from cf_factory import CasePaths, paired, reference_anomalies
+from run_support import run_options
 from scipy.stats import pearsonr
 
-from app.cube.engine import ScoreOptions, run
+from app.runs.scoring import run_engine
 
 
 def _reference_acc(case: CasePaths, name: str = "realistic", **kw: object) -> np.ndarray:
@@ -46,7 +47,7 @@ def test_scattered_nans_give_finite_acc_matching_the_reference(
     make_cf_case: Callable[..., CasePaths], defects: dict
 ) -> None:
     case = make_cf_case(**defects)
-    out = run(*case.engine_args(), options=ScoreOptions(resamples=100))
+    out = run_engine(*case.engine_args(), options=run_options(resamples=100))
     assert np.isfinite(out.cells.acc_realistic).all() and np.isfinite(out.cells.acc_scrambled).all()
     assert np.isfinite(out.cells.p_value).all()
     np.testing.assert_allclose(out.cells.acc_realistic, _reference_acc(case, "realistic"), atol=1e-10)
@@ -58,7 +59,7 @@ def test_scattered_nans_give_finite_acc_matching_the_reference(
 
 def test_a_start_with_every_member_missing_drops_only_that_sample(make_cf_case: Callable[..., CasePaths]) -> None:
     case = make_cf_case(missing_members=0.6, members=2)
-    out = run(*case.engine_args(), options=ScoreOptions(resamples=50))
+    out = run_engine(*case.engine_args(), options=run_options(resamples=50))
     ref = paired(reference_anomalies(case))
     n_ref = np.isfinite(ref["observed"]).sum(("year", "slot")).values.reshape(len(out.windows), -1)
     assert (n_ref < 16).any(), "some starts lose every member in this case"
@@ -73,9 +74,9 @@ def test_absent_observation_days_count_like_missing_ones(make_cf_case: Callable[
     days = (10, 60)
     as_nan = make_cf_case(nan_obs_days=days)
     absent = make_cf_case(absent_obs_days=days)
-    options = ScoreOptions(resamples=50)
-    a = run(*as_nan.engine_args(), options=options)
-    b = run(*absent.engine_args(), options=options)
+    options = run_options(resamples=50)
+    a = run_engine(*as_nan.engine_args(), options=options)
+    b = run_engine(*absent.engine_args(), options=options)
     np.testing.assert_array_equal(b.cells.n_samples, a.cells.n_samples)
     np.testing.assert_allclose(b.cells.acc_realistic, a.cells.acc_realistic, atol=1e-12)
     np.testing.assert_allclose(b.cells.acc_realistic, _reference_acc(as_nan), atol=1e-10)
@@ -83,7 +84,7 @@ def test_absent_observation_days_count_like_missing_ones(make_cf_case: Callable[
 
 def test_different_member_counts_are_flagged(make_cf_case: Callable[..., CasePaths]) -> None:
     case = make_cf_case(members=4, members_scrambled=3)
-    out = run(*case.engine_args(), options=ScoreOptions(resamples=50))
+    out = run_engine(*case.engine_args(), options=run_options(resamples=50))
     warnings = out.summary["warnings"]
     assert any("member counts differ (realistic 4, scrambled 3)" in w and "equalize_members" in w
                for w in warnings), warnings
@@ -93,9 +94,9 @@ def test_different_member_counts_are_flagged(make_cf_case: Callable[..., CasePat
 
 def test_equalize_members_subsamples_to_the_smaller_ensemble(make_cf_case: Callable[..., CasePaths]) -> None:
     case = make_cf_case(members=4, members_scrambled=3)
-    plain = run(*case.engine_args(), options=ScoreOptions(resamples=50))
-    eq1 = run(*case.engine_args(), options=ScoreOptions(resamples=50, equalize_members=True, seed=99))
-    eq2 = run(*case.engine_args(), options=ScoreOptions(resamples=50, equalize_members=True, seed=99))
+    plain = run_engine(*case.engine_args(), options=run_options(resamples=50))
+    eq1 = run_engine(*case.engine_args(), options=run_options(resamples=50, equalize_members=True, seed=99))
+    eq2 = run_engine(*case.engine_args(), options=run_options(resamples=50, equalize_members=True, seed=99))
     assert any("members equalized to 3 per experiment (seed 99)" in w for w in eq1.summary["warnings"])
     assert not any("member counts differ" in w for w in eq1.summary["warnings"])
     # deterministic for a seed

@@ -18,12 +18,12 @@ import pytest
 import xarray as xr
 from cf_factory import KELVIN, SECONDS_PER_DAY, CasePaths, paired, reference_anomalies
 from cf_xarray.units import units as cf_ureg
+from run_support import run_options
 from scipy.stats import pearsonr
 
-from app.cube.engine import ScoreOptions, run
 from app.cube.inputs import prepare
 from app.errors import InputError
-from app.results.engine import score
+from app.runs.scoring import run_engine, score_files
 
 MAP_FIELDS = ("acc_realistic", "acc_scrambled", "gain", "gain_low", "gain_high", "p_value", "significant")
 
@@ -43,9 +43,9 @@ def _rewrite_observations(case: CasePaths, target: Path, *, scale: float, offset
 def test_degc_observations_score_like_kelvin(make_cf_case: Callable[..., CasePaths], tmp_path: Path) -> None:
     case = make_cf_case(obs_units="degC")
     kelvin = _rewrite_observations(case, tmp_path / "obs_kelvin.nc", scale=1.0, offset=KELVIN, units="K")
-    options = ScoreOptions(resamples=300, seed=7)
-    mixed = score(case.realistic, case.scrambled, case.observations, options=options)
-    same = score(case.realistic, case.scrambled, kelvin, options=options)
+    options = run_options(resamples=300, seed=7)
+    mixed = score_files(case.realistic, case.scrambled, case.observations, options=options)
+    same = score_files(case.realistic, case.scrambled, kelvin, options=options)
     assert mixed.meta["units"] == "K"
     for field in MAP_FIELDS:
         a, b = mixed.maps[field].values, same.maps[field].values
@@ -86,9 +86,9 @@ def test_precipitation_mm_per_day_converts_to_mass_flux(make_cf_case: Callable[.
     flux = _rewrite_observations(
         case, tmp_path / "obs_flux.nc", scale=1.0 / SECONDS_PER_DAY, offset=0.0, units="kg m-2 s-1"
     )
-    options = ScoreOptions(resamples=200)
-    mixed = run(case.realistic, case.scrambled, case.observations, options=options)
-    same = run(case.realistic, case.scrambled, flux, options=options)
+    options = run_options(resamples=200)
+    mixed = run_engine(case.realistic, case.scrambled, case.observations, options=options)
+    same = run_engine(case.realistic, case.scrambled, flux, options=options)
     assert mixed.summary["units"] == "kg m-2 s-1"
     # the anomalies are in the hindcast units: a wrong scale (e.g. 1, or 1/1000) shows here
     np.testing.assert_allclose(mixed.cube.observed, same.cube.observed, rtol=1e-9, atol=1e-18)
@@ -100,7 +100,7 @@ def test_precipitation_mm_per_day_converts_to_mass_flux(make_cf_case: Callable[.
 def test_units_that_do_not_convert(make_cf_case: Callable[..., CasePaths]) -> None:
     case = make_cf_case(units_override={"observations": "m"})
     with pytest.raises(InputError) as err:
-        run(*case.engine_args(), options=ScoreOptions(resamples=10))
+        run_engine(*case.engine_args(), options=run_options(resamples=10))
     msg = err.value.message
     assert "observations.nc" in msg and "'tas'" in msg
     assert "units m do not convert to K" in msg and "realistic.nc" in msg

@@ -2,7 +2,7 @@
 
 The case is written by ``benchmarks/synthetic_pair.py`` (streaming, float32, chunked along
 space): each hindcast is about 26 MB, larger than the 16 MiB budget given to the run. The test
-wraps :meth:`app.cube.datasets.Source.read` and ``app.cube.engine.reduce_tile`` (the real reads
+wraps :meth:`app.cube.sources.Source.read` and ``app.cube.tiles.reduce_tile`` (the real reads
 and reductions still happen) to record every read the engine makes, and traces Python/numpy
 allocations with :mod:`tracemalloc` while it runs.
 """
@@ -20,20 +20,16 @@ from typing import Any
 
 import numpy as np
 import pytest
+from run_support import run_options
 from scipy import stats
 
-from app.cube import engine
+from app.cube import tiles
 from app.cube.assess import Estimate
-from app.cube.datasets import Source
-from app.cube.engine import (
-    RunOutput,
-    ScoreOptions,
-    plan_tiles,
-    run,
-    task_budget,
-    tile_bytes_per_cell,
-)
 from app.cube.inputs import prepare
+from app.cube.pipeline import RunOutput
+from app.cube.sources import Source
+from app.cube.tiles import plan_tiles, task_budget, tile_bytes_per_cell
+from app.runs.scoring import run_engine
 
 BENCH = Path(__file__).resolve().parents[1] / "benchmarks" / "synthetic_pair.py"
 BUDGET = 16 * 2**20
@@ -65,10 +61,10 @@ def case(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
 @pytest.fixture
 def reads(monkeypatch: pytest.MonkeyPatch) -> Iterator[list[dict[str, Any]]]:
     """Every read by Source.read: file, role, lat/lon slices, bytes returned, and whether it
-    happened inside a tile reduction (``engine.reduce_tile``) or before (input validation)."""
+    happened inside a tile reduction (``tiles.reduce_tile``) or before (input validation)."""
     log: list[dict[str, Any]] = []
     inside = threading.local()
-    original_read, original_reduce = Source.read, engine.reduce_tile
+    original_read, original_reduce = Source.read, tiles.reduce_tile
 
     def recording(self: Source, **kwargs: Any) -> np.ndarray:
         values = original_read(self, **kwargs)
@@ -85,12 +81,12 @@ def reads(monkeypatch: pytest.MonkeyPatch) -> Iterator[list[dict[str, Any]]]:
             inside.tile = False
 
     monkeypatch.setattr(Source, "read", recording)
-    monkeypatch.setattr(engine, "reduce_tile", reducing)
+    monkeypatch.setattr(tiles, "reduce_tile", reducing)
     yield log
 
 
 def _run(case: dict[str, Path], budget: int) -> RunOutput:
-    return run(*case.values(), options=ScoreOptions(memory_budget=budget, resamples=RESAMPLES), threads=THREADS)
+    return run_engine(*case.values(), options=run_options(resamples=RESAMPLES), memory_budget=budget, threads=THREADS)
 
 
 def test_tiles_read_within_the_task_budget(case: dict[str, Path], reads: list[dict[str, Any]]) -> None:

@@ -8,13 +8,14 @@ from contextlib import asynccontextmanager
 from fastapi import FastAPI
 from fastapi.staticfiles import StaticFiles
 
-from app.api.errors import install_error_handlers
+from app.api.error_handlers import install_error_handlers
 from app.api.logs import log_request
 from app.api.metrics import MeasureMiddleware, Metrics
 from app.api.routes import comparisons, datasets, experiments, ops, results, tokens
-from app.api.routes.ops import STATIC_DIR, version
+from app.api.routes.ops import STATIC_DIR
+from app.provenance import code_version
 from app.settings import Settings
-from app.store import Store, repo
+from app.store import Store, job_rows
 
 
 def create_app(settings: Settings, *, store: Store | None = None) -> FastAPI:
@@ -35,7 +36,7 @@ def create_app(settings: Settings, *, store: Store | None = None) -> FastAPI:
 
     app = FastAPI(
         title="landlift",
-        version=version(),
+        version=code_version(),
         summary="Verification of land-initialisation skill gain in sub-seasonal hindcasts",
         lifespan=lifespan,
     )
@@ -44,8 +45,8 @@ def create_app(settings: Settings, *, store: Store | None = None) -> FastAPI:
     metrics = Metrics()
 
     def job_stats() -> tuple[dict[str, int], list[float]]:
-        durations = [float(j["seconds"]) for j in repo.job_durations(opened)]
-        return repo.job_counts(opened), durations
+        durations = [float(j["seconds"]) for j in job_rows.job_durations(opened)]
+        return job_rows.job_counts(opened), durations
 
     metrics.add_job_collector(job_stats)
     app.state.metrics = metrics

@@ -5,7 +5,7 @@ Routes declare what they need as parameters typed with these aliases::
     def get_job(job_id: str, store: StoreDep, _: ReadAccess) -> JobOut: ...
 
 ``ReadAccess``/``WriteAccess``/``AdminAccess`` check ``Authorization: Bearer <token>`` against
-the stored token hashes (constant-time compare in :func:`app.store.repo.verify_token`): no token
+the stored token hashes (constant-time compare in :func:`app.store.token_rows.verify_token`): no token
 or a bad token is 401, too small a scope is 403, each with the DESIGN error body. With the
 ``public_read`` setting, reads need no token (a token that is sent must still be valid).
 """
@@ -17,9 +17,9 @@ from typing import Annotated
 
 from fastapi import Depends, Request
 
-from app.api.errors import ApiError
+from app.api.error_handlers import ApiError
 from app.settings import Settings
-from app.store import Store, repo
+from app.store import Store, token_rows
 
 
 async def get_store(request: Request) -> Store:
@@ -86,7 +86,7 @@ async def _verified(store: Store, token: str) -> dict | None:
     hit = _token_cache.get(key)
     if hit is not None and hit[0] > now:
         return hit[1]
-    info = await run_in_threadpool(repo.verify_token, store, token)
+    info = await run_in_threadpool(token_rows.verify_token, store, token)
     if info is not None:
         if len(_token_cache) > 1024:
             _token_cache.clear()
@@ -117,7 +117,7 @@ def require(scope: str) -> object:
                 "the bearer token is unknown or revoked",
                 headers={"WWW-Authenticate": 'Bearer realm="landlift", error="invalid_token"'},
             )
-        if not repo.scope_allows(info["scope"], scope):
+        if not token_rows.scope_allows(info["scope"], scope):
             raise ApiError(
                 403,
                 "forbidden",

@@ -1,75 +1,60 @@
-"""Request and response bodies (pydantic). Field names follow DESIGN section 5 exactly."""
+"""Request and response bodies (pydantic). Field names follow DESIGN section 5 exactly.
+
+The experiment body *is* the run options (:class:`app.runs.options.RunOptions`) plus a name and
+the dataset ids, so every option ``landlift score`` offers can be set over HTTP with the same
+bounds and the same error text. Every JSON answer is one of the ``...Out`` models, validated
+before it is sent (routes that set cache headers validate explicitly).
+"""
 
 from __future__ import annotations
 
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field
+
+from app.runs.options import (
+    ComparisonOptions,
+    Name,
+    RunOptions,
+    Variable,
+)
 
 Role = Literal["hindcast", "observations", "land_state"]
 JobStatus = Literal["queued", "running", "done", "failed"]
+#: ids are short prefixed hex strings (``ds_0123abcd...``)
+ID_PATTERN = r"^[a-z]{2,4}_[0-9a-f]{1,32}$"
+DatasetId = Field(min_length=1, max_length=64, pattern=ID_PATTERN)
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False, frozen=True)
 
 
-class LeadWindowIn(_Strict):
-    label: str = Field(min_length=1, max_length=50)
-    first_day: int = Field(ge=1)
-    last_day: int = Field(ge=1)
+class ExperimentIn(RunOptions):
+    """``POST /v1/experiments``: a name, the dataset ids, and the run options."""
 
-    @model_validator(mode="after")
-    def _ordered(self) -> LeadWindowIn:
-        if self.last_day < self.first_day:
-            raise ValueError(
-                f"lead window {self.label!r}: last_day {self.last_day} is before first_day "
-                f"{self.first_day}"
-            )
-        return self
-
-
-class BootstrapIn(_Strict):
-    resamples: int = Field(default=1000, ge=1, le=10000)
-    seed: int = Field(default=1234, ge=0, le=2**63 - 1)
-    confidence: float = Field(default=0.95, gt=0.0, lt=1.0)
-
-
-class PolygonRegionIn(_Strict):
-    """An uploaded GeoJSON polygon region; its curves are named ``polygon:NAME``."""
-
-    name: str = Field(min_length=1, max_length=100, pattern=r"^[A-Za-z0-9 _.\-]+$")
-    geojson: dict[str, Any]
-
-
-class ExperimentIn(_Strict):
-    name: str = Field(min_length=1, max_length=200)
-    variable: str | None = Field(default=None, min_length=1, max_length=100)
-    realistic: str = Field(min_length=1, max_length=64, description="dataset id (role hindcast)")
-    scrambled: str = Field(min_length=1, max_length=64, description="dataset id (role hindcast)")
-    observations: str = Field(min_length=1, max_length=64, description="dataset id")
-    land_state: str | None = Field(default=None, min_length=1, max_length=64)
-    lead_windows: list[LeadWindowIn] | None = Field(default=None, min_length=1, max_length=52)
-    regions: list[str | PolygonRegionIn] | None = Field(default=None, min_length=1, max_length=100)
-    bootstrap: BootstrapIn | None = None
-    fdr_alpha: float | None = Field(default=None, gt=0.0, lt=1.0)
-    equalize_members: bool = False
+    name: Name
+    realistic: str = Field(min_length=1, max_length=64, pattern=ID_PATTERN, description="dataset id (role hindcast)")
+    scrambled: str = Field(min_length=1, max_length=64, pattern=ID_PATTERN, description="dataset id (role hindcast)")
+    observations: str = Field(min_length=1, max_length=64, pattern=ID_PATTERN, description="dataset id")
+    land_state: str | None = Field(default=None, min_length=1, max_length=64, pattern=ID_PATTERN)
 
 
 class RegisterIn(_Strict):
     uri: str = Field(min_length=1, max_length=4096)
     role: Role
-    variable: str | None = Field(default=None, min_length=1, max_length=100)
+    variable: Variable | None = None
 
 
-class ComparisonIn(_Strict):
-    baseline: str = Field(min_length=1, max_length=64, description="experiment id")
-    candidate: str = Field(min_length=1, max_length=64, description="experiment id")
-    bootstrap: BootstrapIn | None = None
+class ComparisonIn(ComparisonOptions):
+    """``POST /v1/comparisons``: two finished experiments and the comparison options."""
+
+    baseline: str = Field(min_length=1, max_length=64, pattern=ID_PATTERN, description="experiment id")
+    candidate: str = Field(min_length=1, max_length=64, pattern=ID_PATTERN, description="experiment id")
 
 
 class TokenIn(_Strict):
-    name: str = Field(min_length=1, max_length=200)
+    name: Name
     scope: Literal["read", "write", "admin"]
 
 
@@ -125,6 +110,7 @@ class ExperimentOut(BaseModel):
     parameters: dict[str, Any]
     options: dict[str, Any]
     provenance: dict[str, Any] | None
+    result_digest: str | None = None
     created_at: str | None
     finished_at: str | None
     links: dict[str, str] = {}
@@ -147,6 +133,7 @@ class ComparisonOut(BaseModel):
     result: dict[str, Any] | None
     created_at: str | None
     finished_at: str | None
+    links: dict[str, str] = {}
 
 
 class TokenOut(BaseModel):
@@ -167,3 +154,77 @@ class Health(BaseModel):
     status: str
     database: str
     version: str
+
+
+class RegionsOut(BaseModel):
+    regions: list[dict[str, str]]
+    patterns: dict[str, str]
+
+
+class ErrorDetail(BaseModel):
+    code: str
+    message: str
+    detail: dict[str, Any]
+
+
+class ErrorOut(BaseModel):
+    """Every error: ``{"error": {"code", "message", "detail"}}`` (DESIGN section 5)."""
+
+    error: ErrorDetail
+
+
+class _Open(BaseModel):
+    """Result bodies: the contract's fields are required; fields are only ever added."""
+
+    model_config = ConfigDict(extra="allow")
+
+
+class Bounded(_Open):
+    value: float | None
+    low: float | None
+    high: float | None
+
+
+class Tested(Bounded):
+    p_value: float | None
+
+
+class WindowSkill(_Open):
+    label: str
+    first_day: int
+    last_day: int
+    n_years: int
+    n_samples: int
+    acc_realistic: Bounded
+    acc_scrambled: Bounded
+    gain: Tested
+
+
+class SkillCurve(_Open):
+    """The skill-by-lead curve of DESIGN section 5."""
+
+    experiment: str
+    variable: str
+    units: str
+    region: str
+    aggregation: str
+    confidence: float
+    resamples: int
+    seed: int
+    interval_method: str
+    windows: list[WindowSkill]
+
+
+class Stratum(_Open):
+    stratum: str
+    windows: list[WindowSkill]
+
+
+class ConditionalTable(_Open):
+    """Gain by stratum of the initial land anomaly (DESIGN 3.8)."""
+
+    experiment: str
+    variable: str
+    region: str
+    available: bool
+    strata: list[Stratum]

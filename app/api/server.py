@@ -11,6 +11,7 @@ from __future__ import annotations
 import logging
 import threading
 
+from app.errors import LandliftError
 from app.settings import Settings
 
 log = logging.getLogger("landlift.api.server")
@@ -39,9 +40,10 @@ def run_server(
     else:
         current, head = current_revision(settings.url), head_revision()
         if current != head:
-            raise SystemExit(
+            raise LandliftError(
                 f"database schema is at revision {current}, the code needs {head}: "
-                "run `landlift db upgrade` first"
+                "run `landlift db upgrade` first",
+                code="schema_out_of_date",
             )
     app = create_app(settings)
     stop = threading.Event()

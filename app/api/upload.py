@@ -1,4 +1,4 @@
-"""Streaming multipart upload: byte cap, SHA-256 while streaming, file signature check.
+"""Streaming multipart upload: byte cap, SHA-256 while streaming.
 
 The body is read with ``request.stream()`` and fed to python-multipart's streaming
 ``MultipartParser``; the ``file`` part goes straight into an artifact-store writer (a temporary
@@ -13,7 +13,6 @@ import contextlib
 import os
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import anyio
 from python_multipart import MultipartParser
@@ -21,7 +20,8 @@ from python_multipart.exceptions import MultipartParseError
 from python_multipart.multipart import parse_options_header
 from starlette.requests import ClientDisconnect, Request
 
-from app.api.errors import ApiError
+from app.api.error_handlers import ApiError
+from app.runs.admission import ReceivedFile
 from app.store.artifacts import ArtifactWriter
 
 #: Bytes allowed on top of the file cap for multipart framing and the small form fields.
@@ -31,41 +31,15 @@ MAX_FIELD_BYTES = 4096
 #: Buffer size of the writes to the temporary file (each write runs in a worker thread).
 WRITE_BUFFER = 1024 * 1024
 
-#: File signatures: NetCDF classic (CDF-1), 64-bit offset (CDF-2), 64-bit data (CDF-5), HDF5.
-SIGNATURES: dict[bytes, str] = {
-    b"CDF\x01": "netcdf3-classic",
-    b"CDF\x02": "netcdf3-64bit-offset",
-    b"CDF\x05": "netcdf3-64bit-data",
-    b"\x89HDF\r\n\x1a\n": "hdf5",
-}
-
-
-def sniff_format(head: bytes) -> str | None:
-    """Name the container format from the first bytes of a file, or ``None`` if not NetCDF/HDF5."""
-    for magic, name in SIGNATURES.items():
-        if head.startswith(magic):
-            return name
-    return None
-
-
 @dataclass
 class Upload:
     """A received upload: the file (whole, fsynced, not yet published) plus the form fields."""
 
-    writer: ArtifactWriter
-    size: int
-    sha256: str
-    head: bytes
-    filename: str | None
+    file: ReceivedFile
     fields: dict[str, str] = field(default_factory=dict)
 
-    @property
-    def path(self) -> Path:
-        return self.writer.temp_path
-
     def discard(self) -> None:
-        with contextlib.suppress(OSError):
-            self.writer.abort()
+        self.file.discard()
 
 
 def too_large(limit: int, received: int | None = None) -> ApiError:
@@ -279,10 +253,8 @@ async def receive_upload(
         sink.remove()
         raise
     return Upload(
-        writer=sink.writer,
-        size=sink.size,
-        sha256=sha256,
-        head=sink.head,
-        filename=sink.filename,
+        file=ReceivedFile(
+            writer=sink.writer, size=sink.size, sha256=sha256, head=sink.head, filename=sink.filename
+        ),
         fields=sink.fields,
     )

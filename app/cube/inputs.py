@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from app.cube.datasets import Source, check_not_all_nan, open_source, same_grid
+from app.cube.sources import Source, check_not_all_nan, open_source, same_grid
 from app.cube.units import Conversion, conversion, parse_units
 from app.cube.windows import LeadWindow, default_windows, lead_indices
 from app.errors import InputError

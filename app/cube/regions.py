@@ -8,17 +8,14 @@ Names a request may use:
                                      regions of Giorgi and Francisco 2000)
     a GeoJSON Feature, FeatureCollection or Polygon given as a mapping (``{"name", "geojson"}``)
 
-Region names never make this module read a file: the CLI reads a GeoJSON file itself
-(:func:`read_geojson_region`) and passes the mapping on, so a name sent over HTTP cannot reach
-the server's disk.
+Region names never make this module read a file: the CLI reads a GeoJSON file itself and passes
+the mapping on, so a name sent over HTTP cannot reach the server's disk.
 """
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from functools import cache
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -26,16 +23,6 @@ from numpy.typing import NDArray
 
 from app.errors import NotFoundError, ParameterError
 
-AGGREGATIONS: tuple[str, ...] = ("acc_of_region_mean", "region_mean_of_acc")
-MAP_FIELDS: tuple[str, ...] = (
-    "gain",
-    "gain_low",
-    "gain_high",
-    "acc_realistic",
-    "acc_scrambled",
-    "p_value",
-    "significant",
-)
 REFERENCE_SETS: tuple[str, ...] = ("srex", "giorgi")
 
 
@@ -99,15 +86,6 @@ def resolve_region(spec: str | dict[str, Any]) -> Region:
         f"or an id of GET /v1/regions such as 'srex:{_reference_set('srex').abbrevs[0]}'",
         region=text,
     )
-
-
-def read_geojson_region(path: str | Path) -> dict[str, Any]:
-    """The mapping form of a GeoJSON file, named after the file (for the CLI)."""
-    p = Path(path)
-    try:
-        return {"name": p.stem, "geojson": json.loads(p.read_text())}
-    except (OSError, ValueError) as exc:
-        raise ParameterError(f"region file {p.name}: cannot read GeoJSON ({exc})") from exc
 
 
 def _box_region(text: str) -> Region:

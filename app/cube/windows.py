@@ -1,8 +1,11 @@
-"""Lead windows: the default weekly set, parsing, and checks against a hindcast's lead days."""
+"""Lead windows: the default weekly set and the check against a hindcast's lead days.
+
+Windows arrive here already validated (labels, day bounds: :mod:`app.runs.options`); this module
+only lays them out on a hindcast's lead axis.
+"""
 
 from __future__ import annotations
 
-import re
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -18,15 +21,6 @@ class LeadWindow:
     label: str
     first_day: int
     last_day: int
-
-    def __post_init__(self) -> None:
-        if not self.label or not self.label.strip():
-            raise ParameterError("a lead window needs a non-empty label")
-        if not (1 <= self.first_day <= self.last_day):
-            raise ParameterError(
-                f"lead window {self.label!r} has days {self.first_day}-{self.last_day}; "
-                "need 1 <= first_day <= last_day"
-            )
 
     @property
     def days(self) -> int:
@@ -53,50 +47,24 @@ def default_windows(max_lead_day: int) -> list[LeadWindow]:
     return reachable
 
 
-_WINDOW_TEXT = re.compile(r"^\s*(?P<label>[^=]+?)\s*=\s*(?P<first>\d+)\s*-\s*(?P<last>\d+)\s*$")
-
-
-def parse_window(text: str) -> LeadWindow:
-    """``"LABEL=FIRST-LAST"`` (CLI form), e.g. ``"week 2=8-14"``."""
-    m = _WINDOW_TEXT.match(text)
-    if not m:
-        raise ParameterError(f"lead window {text!r} is not of the form LABEL=FIRST-LAST, e.g. 'week 2=8-14'")
-    return LeadWindow(m["label"], int(m["first"]), int(m["last"]))
-
-
-def windows_from_dicts(items: list[dict[str, object]] | None) -> list[LeadWindow] | None:
-    """Windows from ``{"label", "first_day", "last_day"}`` dicts (API form)."""
-    if items is None:
-        return None
-    out = []
-    for item in items:
-        try:
-            out.append(LeadWindow(str(item["label"]), int(item["first_day"]), int(item["last_day"])))  # type: ignore[call-overload]
-        except (KeyError, TypeError, ValueError) as exc:
-            raise ParameterError(f"lead window {item!r} needs label, first_day and last_day ({exc})") from exc
-    labels = [w.label for w in out]
-    if len(set(labels)) != len(labels):
-        raise ParameterError(f"lead window labels must be unique, got {labels}")
-    if not out:
-        raise ParameterError("the list of lead windows is empty")
-    return out
-
-
 def lead_indices(
     windows: list[LeadWindow], lead_days: NDArray[np.int64], *, file: str, variable: str | None = None
 ) -> list[NDArray[np.int64]]:
     """Positions on the lead axis of each window's days; InputError if the hindcast lacks any."""
-    position = {int(d): i for i, d in enumerate(lead_days)}
+    days = np.asarray(lead_days, dtype=np.int64)
     out = []
     for w in windows:
-        missing = [d for d in range(w.first_day, w.last_day + 1) if d not in position]
-        if missing:
+        # the hindcast's own lead days bound the work, whatever the window asks for
+        inside = np.flatnonzero((days >= w.first_day) & (days <= w.last_day))
+        if inside.size != w.days:
+            have = set(days[inside].tolist())
+            first_missing = next(d for d in range(w.first_day, w.last_day + 1) if d not in have)
             raise InputError(
                 f"lead window {w.label!r} ({w.first_day}-{w.last_day}) goes beyond the hindcast, "
-                f"which has lead days {int(lead_days[0])}-{int(lead_days[-1])} (missing {missing[0]}"
-                f"{'...' if len(missing) > 1 else ''})",
+                f"which has lead days {int(days[0])}-{int(days[-1])} (missing {first_missing}"
+                f"{'...' if w.days - inside.size > 1 else ''})",
                 file=file,
                 variable=variable,
             )
-        out.append(np.array([position[d] for d in range(w.first_day, w.last_day + 1)], dtype=np.int64))
+        out.append(inside.astype(np.int64))
     return out

@@ -5,6 +5,8 @@ A handler gets a :class:`JobContext`, does the work (reporting progress through
 and returns a *recorder*: a function of a SQLAlchemy session that writes the result rows. The
 worker calls the recorder inside the same owner-checked transaction that marks the job ``done``,
 so the rows appear only if this worker still owns the job, and only after the files are whole.
+
+Options were validated when the run was submitted; a job reloads them without checking again.
 """
 
 from __future__ import annotations
@@ -18,7 +20,8 @@ from typing import Any
 from sqlalchemy.orm import Session
 
 from app.jobs.queue import Claim
-from app.store import Store, repo
+from app.store import Store, comparison_rows, experiment_rows
+from app.store.common import media_type_for
 
 Recorder = Callable[[Session], None]
 
@@ -42,16 +45,13 @@ Handler = Callable[[JobContext], Recorder | None]
 
 def run_score(ctx: JobContext) -> Recorder:
     """Score an experiment: payload ``{"experiment_id", "inputs": {slot: {"dataset_id", "path",
-    "sha256"}}, "options": ScoreOptions dict}``."""
-    from app.cube.engine import ScoreOptions
+    "sha256"}}, "options": RunOptions dump}``."""
+    from app.runs.options import RunOptions
+    from app.runs.scoring import score_files
 
     payload = ctx.payload
     experiment_id = payload["experiment_id"]
-    options = ScoreOptions.from_dict(dict(payload["options"]))
-    budget = ctx.store.settings.memory_budget
-    if options.memory_budget is None and budget is not None:
-        options.memory_budget = budget
-    options.validate()
+    options = RunOptions.reload(payload["options"])
     inputs = payload["inputs"]
     paths = {slot: inputs[slot]["path"] for slot in inputs}
     sha256 = {slot: inputs[slot]["sha256"] for slot in inputs if inputs[slot].get("sha256")}
@@ -61,12 +61,8 @@ def run_score(ctx: JobContext) -> Recorder:
         # the engine's 0..1 is the job's 0.02..0.95; storing the files is the rest
         ctx.progress(0.02 + 0.93 * min(1.0, max(0.0, float(fraction))), message)
 
-    extra: dict[str, Any] = {}
-    if ctx.store.settings.dask_scheduler:
-        extra["scheduler"] = ctx.store.settings.dask_scheduler
-    from app.results.engine import score
-
-    result = score(
+    settings = ctx.store.settings
+    result = score_files(
         paths["realistic"],
         paths["scrambled"],
         paths["observations"],
@@ -75,7 +71,8 @@ def run_score(ctx: JobContext) -> Recorder:
         experiment=experiment_id,
         progress=engine_progress,
         input_sha256=sha256,
-        **extra,
+        scheduler=settings.dask_scheduler,
+        memory_budget=settings.memory_budget,
     )
     ctx.check()
     ctx.progress(0.97, "storing results")
@@ -83,7 +80,7 @@ def run_score(ctx: JobContext) -> Recorder:
     try:
         saved = result.save(work)
         refs = {
-            name: ctx.store.artifacts.put_file(path, media_type=repo.media_type_for(name))
+            name: ctx.store.artifacts.put_file(path, media_type=media_type_for(name))
             for name, path in saved.items()
         }
     finally:
@@ -91,7 +88,7 @@ def run_score(ctx: JobContext) -> Recorder:
     provenance = dict(result.provenance)
 
     def record(session: Session) -> None:
-        repo.record_score_result(
+        experiment_rows.record_score_result(
             session, experiment_id=experiment_id, files=refs, provenance=provenance
         )
 
@@ -100,22 +97,18 @@ def run_score(ctx: JobContext) -> Recorder:
 
 def run_compare(ctx: JobContext) -> Recorder:
     """Compare two finished experiments: payload ``{"comparison_id", "baseline", "candidate",
-    "resamples", "seed", "confidence", "region"}``."""
-    from app.results.compare import compare_results
+    "options": ComparisonOptions dump}``."""
+    from app.runs.compare import compare_experiments
+    from app.runs.options import ComparisonOptions
 
     payload = ctx.payload
     ctx.progress(0.0, "loading results")
-    baseline = repo.load_result(ctx.store, payload["baseline"])
-    candidate = repo.load_result(ctx.store, payload["candidate"])
+    baseline = experiment_rows.load_result(ctx.store, payload["baseline"])
+    candidate = experiment_rows.load_result(ctx.store, payload["candidate"])
     ctx.check()
     ctx.progress(0.2, "comparing")
-    out = compare_results(
-        baseline,
-        candidate,
-        resamples=int(payload["resamples"]),
-        seed=int(payload["seed"]),
-        confidence=float(payload["confidence"]),
-        region=str(payload.get("region", "all")),
+    out = compare_experiments(
+        baseline, candidate, options=ComparisonOptions.reload(payload.get("options") or {})
     )
     ctx.check()
     data = json.dumps(out, sort_keys=True, allow_nan=False).encode("utf-8")
@@ -123,7 +116,7 @@ def run_compare(ctx: JobContext) -> Recorder:
     comparison_id = payload["comparison_id"]
 
     def record(session: Session) -> None:
-        repo.record_comparison_result(session, comparison_id=comparison_id, ref=ref)
+        comparison_rows.record_comparison_result(session, comparison_id=comparison_id, ref=ref)
 
     return record
 

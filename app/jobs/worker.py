@@ -259,9 +259,10 @@ def run_worker(
 
         current = current_revision(settings.url)
         if current != head_revision():
-            raise RuntimeError(
+            raise LandliftError(
                 f"database schema is at revision {current!r}, not {head_revision()!r}: "
-                "run `landlift db upgrade` first"
+                "run `landlift db upgrade` first",
+                code="schema_out_of_date",
             )
         worker = Worker(store, name=name, stop_event=stop_event, handlers=handlers)
         return worker.run(once=once, max_jobs=max_jobs, drain=drain)

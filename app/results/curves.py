@@ -8,7 +8,7 @@ from typing import Any
 import numpy as np
 
 from app.cube.assess import STRATA, Estimate
-from app.cube.engine import RegionAssessment
+from app.cube.pipeline import RegionAssessment
 from app.cube.windows import LeadWindow
 
 

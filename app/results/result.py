@@ -19,20 +19,20 @@ import numpy as np
 import xarray as xr
 
 from app.cube.assess import Cube
-from app.cube.engine import (
+from app.cube.pipeline import (
     RegionAssessment,
+    Resampling,
     RunOutput,
-    ScoreOptions,
     assess_region,
     region_assessments,
 )
-from app.cube.regions import AGGREGATIONS, MAP_FIELDS, resolve_region
+from app.cube.regions import resolve_region
 from app.cube.windows import LeadWindow
 from app.errors import NotFoundError, ParameterError
+from app.provenance import code_version, history_line
+from app.results.contract import AGGREGATIONS, MAP_FIELDS, RESULT_FILES
 from app.results.curves import conditional_table, region_curves
-from app.results.provenance import code_version, history_line
 
-FILES = ("skill.json", "maps.nc", "anomalies.nc", "result.json")
 #: p-values stay float64 so that "p < 1 - confidence" read from the file agrees with the bounds
 MAP_DTYPES: dict[str, type] = {"p_value": np.float64, "n_samples": np.int32}
 
@@ -59,17 +59,21 @@ class ScoreResult:
 
     # -- building -----------------------------------------------------------------------------
     @classmethod
-    def from_run(cls, out: RunOutput, *, experiment: str, provenance: dict[str, Any]) -> ScoreResult:
+    def from_run(
+        cls, out: RunOutput, *, experiment: str, provenance: dict[str, Any], options: dict[str, Any]
+    ) -> ScoreResult:
+        """Format a finished run; ``options`` are the run's options as the client gave them."""
+        boot = out.scoring.bootstrap
         meta = {
             "experiment": experiment,
             "variable": out.summary["variable"],
             "units": out.summary["units"],
-            "confidence": out.options.confidence,
-            "resamples": out.options.resamples,
-            "seed": out.options.seed,
-            "interval_method": out.options.interval,
-            "fdr_alpha": out.options.fdr_alpha,
-            "options": out.options.to_dict(),
+            "confidence": boot.confidence,
+            "resamples": boot.resamples,
+            "seed": boot.seed,
+            "interval_method": boot.interval,
+            "fdr_alpha": out.scoring.fdr_alpha,
+            "options": options,
             "summary": out.summary,
             "windows": [w.to_dict() for w in out.windows],
             "provenance": provenance,
@@ -97,8 +101,13 @@ class ScoreResult:
         return dict(self.meta["provenance"])
 
     @property
-    def options(self) -> ScoreOptions:
-        return ScoreOptions.from_dict(self.meta["options"])
+    def resampling(self) -> Resampling:
+        """The run's bootstrap, to assess further regions on the same resampled years."""
+        m = self.meta
+        return Resampling(
+            resamples=int(m["resamples"]), seed=int(m["seed"]),
+            confidence=float(m["confidence"]), interval=str(m["interval_method"]),
+        )
 
     def curve(self, region: str = "all", aggregation: str = "acc_of_region_mean") -> dict[str, Any]:
         """The skill curve of a region; a region not scored yet is assessed now and kept."""
@@ -124,15 +133,18 @@ class ScoreResult:
 
     def _assess_more(self, region: str) -> None:
         reg = resolve_region(region)
-        cube, lat, lon = self._cube()
+        cube, lat, lon = self.anomaly_cube()
         sig = self.maps["significant"].values.reshape(len(self.window_labels), -1).astype(bool)
-        ra: RegionAssessment = assess_region(cube, reg, lat=lat, lon=lon, options=self.options, significant=sig)
+        ra: RegionAssessment = assess_region(
+            cube, reg, lat=lat, lon=lon, bootstrap=self.resampling, significant=sig
+        )
         if reg.id != region:
             raise NotFoundError(f"region {region!r} resolves to {reg.id!r}")
         self.curves.extend(region_curves(ra, self.windows, self.meta))
         self._conditional[reg.id] = conditional_table(ra, self.windows, self.meta)
 
-    def _cube(self) -> tuple[Cube, np.ndarray, np.ndarray]:
+    def anomaly_cube(self) -> tuple[Cube, np.ndarray, np.ndarray]:
+        """The reduced anomaly cube with its latitudes and longitudes (loaded on first use)."""
         if self._anomalies is None:
             if self._anomalies_path is None:
                 raise NotFoundError("this result has no anomaly cube; only the regions scored with it are available")
@@ -147,6 +159,13 @@ class ScoreResult:
         land = flat("land_z") if "land_z" in a else None
         return Cube(flat("realistic"), flat("scrambled"), flat("observed"), land), lat, lon
 
+    def sample_layout(self) -> tuple[np.ndarray, list[str]]:
+        """The cube's years and start slots (``MM-DD``)."""
+        self.anomaly_cube()
+        a = self._anomalies
+        assert a is not None
+        return a["year"].values.astype(np.int64), [str(s) for s in a["start_slot"].values]
+
     # -- files --------------------------------------------------------------------------------
     def skill_json(self) -> str:
         return json.dumps(self.curves, indent=1, allow_nan=False)
@@ -155,7 +174,7 @@ class ScoreResult:
         """Write the four files (module docstring) into ``directory``; their paths."""
         d = Path(directory)
         d.mkdir(parents=True, exist_ok=True)
-        paths = {name: d / name for name in FILES}
+        paths = {name: d / name for name in RESULT_FILES}
         _atomic_text(paths["skill.json"], self.skill_json())
         _atomic_netcdf(paths["maps.nc"], self.maps)
         if self._anomalies is None and self._anomalies_path is not None:
@@ -173,7 +192,7 @@ class ScoreResult:
     @classmethod
     def load(cls, source: str | Path | Mapping[str, str | Path]) -> ScoreResult:
         """Read a saved result from a directory or a ``{file name: path}`` mapping."""
-        files = {n: Path(source) / n for n in FILES} if isinstance(source, (str, Path)) else {
+        files = {n: Path(source) / n for n in RESULT_FILES} if isinstance(source, (str, Path)) else {
             n: Path(p) for n, p in source.items()
         }
         missing = [n for n in ("skill.json", "maps.nc", "result.json") if n not in files or not files[n].exists()]
@@ -218,7 +237,7 @@ def build_maps(out: RunOutput, meta: dict[str, Any]) -> xr.Dataset:
 
     c = out.cells
     dims = ("window", "lat", "lon")
-    conf = f"{round(100 * out.options.confidence, 3):g}%"
+    conf = f"{round(100 * out.scoring.bootstrap.confidence, 3):g}%"
     variables = {
         "acc_realistic": (grid(c.acc_realistic), "anomaly correlation of the realistic-start ensemble mean"),
         "acc_scrambled": (grid(c.acc_scrambled), "anomaly correlation of the scrambled-start ensemble mean"),
@@ -240,7 +259,7 @@ def build_maps(out: RunOutput, meta: dict[str, Any]) -> xr.Dataset:
         grid(out.significant).astype(np.int8),
         dims=dims,
         attrs={
-            "long_name": f"gain significant under the Benjamini-Hochberg false discovery rate {out.options.fdr_alpha:g} across the map",
+            "long_name": f"gain significant under the Benjamini-Hochberg false discovery rate {out.scoring.fdr_alpha:g} across the map",
             "flag_values": np.array([0, 1], dtype=np.int8),
             "flag_meanings": "not_significant significant",
         },

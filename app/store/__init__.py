@@ -1,7 +1,10 @@
 """Storage layer: the database (SQLAlchemy 2) and the content-addressed artifact store.
 
-``Store.open(settings)`` gives the pair the API, the workers and the CLI share; the functions the
-API calls are in :mod:`app.store.repo`.
+``Store.open(settings)`` gives the pair the API, the workers and the CLI share. The functions on
+it are grouped by aggregate: :mod:`~app.store.dataset_rows`, :mod:`~app.store.experiment_rows`,
+:mod:`~app.store.comparison_rows`, :mod:`~app.store.job_rows` (reads, and the queued job an experiment
+or comparison creates; the queue's owner-checked writes are :mod:`app.jobs.queue`),
+:mod:`~app.store.token_rows` and :mod:`~app.store.derived_files` (cached renderings of results).
 """
 
 from __future__ import annotations

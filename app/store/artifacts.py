@@ -4,13 +4,12 @@ A file is written to a temporary name under ``ROOT/tmp``, hashed (SHA-256) while
 flushed and fsynced, then renamed to ``ROOT/objects/ab/cd/<sha256>`` and the folder fsynced.
 The rename is atomic, so a reader sees either no file or the whole file; a database row may point
 at an artifact only after :meth:`ArtifactWriter.commit` has returned (see
-``app.store.repo.record_artifact``). Identical content lands on the same name, so two workers
+``app.store.common.record_artifact``). Identical content lands on the same name, so two workers
 storing the same result simply agree.
 """
 
 from __future__ import annotations
 
-import hashlib
 import os
 import re
 import shutil
@@ -22,17 +21,17 @@ from pathlib import Path
 from types import TracebackType
 from typing import BinaryIO
 
-from app.errors import LandliftError, NotFoundError
+from app.errors import NotFoundError, TooLargeError
+from app.provenance import ContentHasher, content_sha256
 
 _HEX64 = re.compile(r"^[0-9a-f]{64}$")
 CHUNK = 1024 * 1024
 
 
-class ArtifactTooLarge(LandliftError):
+class ArtifactTooLarge(TooLargeError):
     """More bytes than the cap were written."""
 
     code = "too_large"
-    http_status = 413
 
 
 @dataclass(frozen=True)
@@ -73,10 +72,11 @@ class ArtifactWriter:
         fd, name = tempfile.mkstemp(prefix="part-", dir=store.tmp_dir)
         self.temp_path = Path(name)
         self._file: BinaryIO | None = os.fdopen(fd, "wb")
-        self._hash = hashlib.sha256()
+        self._hash = ContentHasher()
         self.size_bytes = 0
         self._sha256: str | None = None
         self._done = False
+        self._committed = False
 
     def write(self, chunk: bytes) -> None:
         if self._file is None:
@@ -120,9 +120,13 @@ class ArtifactWriter:
             os.replace(self.temp_path, target)
             _fsync_dir(target.parent)
         self._done = True
+        self._committed = True
         return ArtifactRef(sha, self.size_bytes, target, self.media_type)
 
     def abort(self) -> None:
+        """Remove the temporary file (a no-op once committed)."""
+        if self._committed:
+            return
         if self._file is not None:
             self._file.close()
             self._file = None
@@ -204,13 +208,7 @@ class ArtifactStore:
     def verify(self, sha256: str) -> bool:
         """Re-hash a stored file and compare with its name."""
         p = self.path_for(sha256)
-        if not p.is_file():
-            return False
-        digest = hashlib.sha256()
-        with open(p, "rb") as fh:
-            while chunk := fh.read(CHUNK):
-                digest.update(chunk)
-        return digest.hexdigest() == sha256
+        return p.is_file() and content_sha256(p) == sha256
 
     def sweep_temp(self, *, older_than_seconds: float = 24 * 3600) -> int:
         """Remove abandoned temporary files (from killed processes); return how many."""

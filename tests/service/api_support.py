@@ -43,8 +43,14 @@ class Server:
     env: dict[str, str]
     clients: list[httpx.Client] = field(default_factory=list)
 
-    def client(self, token: str | None = None, **kwargs: Any) -> httpx.Client:
+    def client(
+        self, token: str | None = None, *, schema: OpenApiChecker | None = None, **kwargs: Any
+    ) -> httpx.Client:
+        """An httpx client; with ``schema``, every JSON answer is checked against the app's
+        own OpenAPI document as it arrives."""
         headers = {"Authorization": f"Bearer {token}"} if token else {}
+        if schema is not None:
+            kwargs["event_hooks"] = {"response": [schema.check]}
         c = httpx.Client(base_url=self.base_url, headers=headers, timeout=120.0, **kwargs)
         self.clients.append(c)
         return c
@@ -119,6 +125,70 @@ def running_server(
         raise
     finally:
         server.stop()
+
+
+class OpenApiChecker:
+    """Checks responses against the server's own ``/openapi.json``.
+
+    For each JSON answer: the route and method exist in the document, the status code is
+    declared for them, and the body validates against the declared schema (JSON Schema 2020-12,
+    which OpenAPI 3.1 schemas are, via ``jsonschema``; ``#/components`` references resolve in
+    the document). ``seen`` records (method, path template, status) of every checked answer.
+    """
+
+    def __init__(self, base_url: str) -> None:
+        import re
+
+        self.spec: dict[str, Any] = httpx.get(base_url + "/openapi.json", timeout=30).json()
+        self.routes = []
+        for template in sorted(self.spec["paths"], key=lambda t: t.count("{")):  # literal first
+            pattern = "^" + re.sub(r"\\{[^/]+?\\}", "[^/]+", re.escape(template)) + "$"
+            self.routes.append((re.compile(pattern), template))
+        self.seen: set[tuple[str, str, int]] = set()
+
+    def template(self, path: str) -> str | None:
+        from urllib.parse import unquote
+
+        for pattern, template in self.routes:
+            if pattern.match(unquote(path)):
+                return template
+        return None
+
+    def check(self, response: httpx.Response) -> None:
+        import jsonschema
+
+        if not response.headers.get("content-type", "").startswith("application/json"):
+            return
+        response.read()
+        method, path = response.request.method, response.request.url.path
+        template = self.template(path)
+        assert template is not None, f"{method} {path} is not in the OpenAPI document"
+        operation = self.spec["paths"][template].get(method.lower())
+        assert operation is not None, f"{method} {template} is not in the OpenAPI document"
+        declared = operation["responses"]
+        status = str(response.status_code)
+        assert status in declared, (
+            f"{method} {template} answered {status}, which the document does not declare "
+            f"(declared: {sorted(declared)})"
+        )
+        content = declared[status].get("content", {}).get("application/json")
+        assert content and "schema" in content, f"{method} {template} {status}: no JSON schema"
+        schema = {**content["schema"], "components": self.spec.get("components", {})}
+        try:
+            jsonschema.Draft202012Validator(schema).validate(response.json())
+        except jsonschema.ValidationError as exc:
+            raise AssertionError(f"{method} {template} {status}: {exc.message}") from exc
+        self.seen.add((method, template, response.status_code))
+
+    def json_routes(self) -> set[tuple[str, str]]:
+        """Every (method, template) with a JSON success answer in the document."""
+        out = set()
+        for template, ops in self.spec["paths"].items():
+            for method, op in ops.items():
+                for status, answer in op["responses"].items():
+                    if status.startswith("2") and "application/json" in answer.get("content", {}):
+                        out.add((method.upper(), template))
+        return out
 
 
 def assert_error(response: httpx.Response, status: int | tuple[int, ...],

@@ -25,7 +25,7 @@ import psycopg
 import pytest
 
 from app.settings import Settings
-from app.store import Store, repo
+from app.store import Store, dataset_rows, token_rows
 from app.store.artifacts import ArtifactStore
 from app.store.db import Database
 from app.store.migrate import upgrade
@@ -184,7 +184,7 @@ def make_token(store: Store) -> Callable[..., str]:
     """``make_token(scope="read", name=...)`` creates a token in the database, returns it."""
 
     def _make(scope: str = "read", name: str | None = None) -> str:
-        token, _info = repo.create_token(store, name=name or f"test-{scope}", scope=scope)
+        token, _info = token_rows.create_token(store, name=name or f"test-{scope}", scope=scope)
         return token
 
     return _make
@@ -209,7 +209,7 @@ def python_exe() -> str:
 def ingest_sample(store: Store, sample_files: dict[str, Path]) -> Callable[..., dict[str, str]]:
     """``ingest_sample()`` stores the sample files as datasets (artifact + describe_dataset, the
     same steps as an upload) and returns ``{slot: dataset_id}`` for create_experiment."""
-    from app.cube.datasets import describe_dataset
+    from app.cube.sources import describe_dataset
 
     roles = {
         "realistic": "hindcast",
@@ -223,7 +223,7 @@ def ingest_sample(store: Store, sample_files: dict[str, Path]) -> Callable[..., 
         for slot in slots:
             ref = store.artifacts.put_file(sample_files[slot], media_type="application/x-netcdf")
             description = describe_dataset(ref.path, role=roles[slot])
-            ds, _created = repo.create_dataset(
+            ds, _created = dataset_rows.create_dataset(
                 store,
                 role=roles[slot],
                 sha256=ref.sha256,

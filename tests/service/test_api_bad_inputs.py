@@ -4,7 +4,7 @@ serving (``/healthz`` still answers ok), and no row or file is left behind.
 "Nothing left behind" is checked on the real database (row counts of every table) and the real
 artifact store (every file under objects/ and tmp/) before and after each bad request. Runs on
 SQLite and PostgreSQL. The validation child is made to crash (``os.abort()``) and to hang through
-the test hook ``LANDLIFT_TEST_VALIDATION_FAULT`` of app.api.validation, read only by the child.
+the test hook ``LANDLIFT_VALIDATION_FAULT`` (setting ``validation_fault``), acted on only by the child.
 """
 
 from __future__ import annotations
@@ -220,7 +220,7 @@ def test_bad_inputs_are_refused_cleanly(
         check("confidence 1.5", experiment(bootstrap={"confidence": 1.5}), 422)
         check("unknown region", experiment(regions=["srex:ATLANTIS"]), 404, "not_found")
         check("region naming a file", experiment(regions=["../../etc/regions.geojson"]), 422,
-              "invalid_parameter")
+              ("invalid_request", "invalid_parameter"))
         check("unknown field in the body", experiment(colour="red"), 422, "invalid_request")
         check("malformed JSON", lambda: c.post(
             "/v1/experiments", content=b'{"name": "x", "realistic": ',
@@ -310,7 +310,7 @@ def test_validation_crash_or_timeout_leaves_server_serving(
     tmp_path: Path,
 ) -> None:
     token = make_token("write")
-    extra = {"LANDLIFT_TEST_VALIDATION_FAULT": fault,
+    extra = {"LANDLIFT_VALIDATION_FAULT": fault,
              "LANDLIFT_VALIDATION_TIMEOUT_SECONDS": str(timeout)}
     with running_server(settings_env, log_dir=tmp_path / "logs", extra_env=extra,
                         with_worker=False) as srv:

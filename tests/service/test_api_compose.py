@@ -16,7 +16,7 @@ from typing import Any
 import pytest
 import yaml
 
-from app.cli import build_parser
+from app.cli.main import build_parser
 from app.settings import Settings
 
 COMPOSE = Path(__file__).resolve().parents[2] / "docker-compose.yml"

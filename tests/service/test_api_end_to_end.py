@@ -22,6 +22,7 @@ import numpy as np
 import pytest
 import xarray as xr
 from api_support import (
+    OpenApiChecker,
     assert_error,
     landlift_command,
     running_server,
@@ -77,8 +78,12 @@ def test_scenario_end_to_end(
     backend: str,
 ) -> None:
     write_token, read_token = make_token("write"), make_token("read")
-    with running_server(settings_env, log_dir=tmp_path / "logs") as srv:
-        writer, reader = srv.client(write_token), srv.client(read_token)
+    admin_token = make_token("admin")
+    roots = {"LANDLIFT_DATA_ROOTS": str(sample_files["realistic"].parent)}
+    with running_server(settings_env, log_dir=tmp_path / "logs", extra_env=roots) as srv:
+        schema = OpenApiChecker(srv.base_url)  # every JSON answer below is checked against it
+        writer = srv.client(write_token, schema=schema)
+        reader = srv.client(read_token, schema=schema)
 
         # -- datasets: 201 new, checksum by hashlib, 200 with the same row for the same bytes --
         ids: dict[str, str] = {}
@@ -270,13 +275,12 @@ def test_scenario_end_to_end(
         offline_b = _score_offline(
             sample_files, tmp_path / "offline_b", name=exp_b["id"], seed=11, env=settings_env
         )
-        from app.results.compare import compare_results
-        from app.results.result import ScoreResult
+        from run_support import comparison_options
 
-        expected = compare_results(
-            ScoreResult.load(offline), ScoreResult.load(offline_b),
-            resamples=RESAMPLES, seed=3, confidence=0.9,
-        )
+        from app.results.result import ScoreResult
+        from app.runs.compare import compare_experiments
+
+        expected = compare_experiments(ScoreResult.load(offline), ScoreResult.load(offline_b), options=comparison_options(resamples=RESAMPLES, seed=3, confidence=0.9))
         assert got_cmp["result"] == json.loads(json.dumps(expected))
         r304 = reader.get(f"/v1/comparisons/{cmp['id']}",
                           headers={"If-None-Match": r.headers["etag"]})
@@ -292,7 +296,28 @@ def test_scenario_end_to_end(
         assert [e["id"] for e in r.json()["items"]] == [exp["id"]]
         assert_error(reader.get("/v1/experiments", params={"status": "lost"}), 422)
 
+        # -- registration of the same file: the same checksum, so the uploaded dataset --
+        r = writer.post("/v1/datasets/register",
+                        json={"uri": str(sample_files["realistic"]), "role": "hindcast"})
+        assert r.status_code == 200, r.text
+        assert r.json()["id"] == ids["realistic"]
+
+        # -- tokens (admin scope): create, list, revoke --
+        admin = srv.client(admin_token, schema=schema)
+        r = admin.post("/v1/tokens", json={"name": "dashboard", "scope": "read"})
+        assert r.status_code == 201, r.text
+        made = r.json()
+        assert made["token"].startswith("ll_") and made["scope"] == "read"
+        assert made["id"] in {t["id"] for t in admin.get("/v1/tokens").json()}
+        r = admin.delete(f"/v1/tokens/{made['id']}")
+        assert r.status_code == 200 and r.json()["revoked_at"]
+
         # -- operations --
+        health = srv.client(schema=schema).get("/healthz").json()
+        assert health == {"status": "ok", "database": "ok", "version": health["version"]}
+        # every JSON route of the document answered and validated against its own schema
+        answered = {(m, t) for m, t, status in schema.seen if 200 <= status < 300}
+        assert schema.json_routes() - answered == set(), sorted(schema.json_routes() - answered)
         metrics = srv.client().get("/metrics").text
         assert 'landlift_jobs{state="done"} 3.0' in metrics
         assert "landlift_job_duration_seconds_count 3.0" in metrics

@@ -13,9 +13,9 @@ from pathlib import Path
 import pytest
 import xarray as xr
 from api_support import running_server, wait_for_job
+from run_support import run_options
 
-from app.cube.engine import ScoreOptions
-from app.results.engine import score
+from app.runs.scoring import score_files
 from app.settings import Settings
 
 ROLES = {"realistic": "hindcast", "scrambled": "hindcast", "observations": "observations", "land_state": "land_state"}
@@ -54,9 +54,9 @@ def test_registered_zarr_stores_score_like_netcdf(
         job = wait_for_job(c, r.json()["job"]["id"])
         assert job["status"] == "done", job
         curve = c.get(f"/v1/experiments/{r.json()['id']}/skill").json()
-    offline = score(
+    offline = score_files(
         sample_files["realistic"], sample_files["scrambled"], sample_files["observations"],
-        sample_files["land_state"], options=ScoreOptions(resamples=60, seed=5, variable="tas"),
+        sample_files["land_state"], options=run_options(resamples=60, seed=5, variable="tas"),
     ).curve()
     for got, want in zip(curve["windows"], offline["windows"], strict=True):
         assert got["label"] == want["label"] and got["n_samples"] == want["n_samples"]

@@ -2,8 +2,8 @@
 
 Real child processes: one that segfaults, one that aborts, one that hangs, one that asks for more
 memory than its RLIMIT_AS allows, and real files (the sample scenario, a truncated copy). The
-parent must always come back with a description or a ValidationFailure, never die or hang.
-The fault hook is ``LANDLIFT_TEST_VALIDATION_FAULT`` (app.api.validation.FAULT_ENV).
+parent must always come back with a description or an InputError, never die or hang.
+The fault hook is the ``fault`` argument (setting ``validation_fault``, app.runs.sandbox.FAULTS).
 """
 
 from __future__ import annotations
@@ -14,9 +14,10 @@ from pathlib import Path
 
 import pytest
 
-from app.api.upload import sniff_format
-from app.api.validation import FAULT_ENV, ValidationFailure, validate_file
-from app.cube.datasets import describe_dataset
+from app.cube.sources import describe_dataset
+from app.errors import InputError
+from app.runs.admission import sniff_format
+from app.runs.sandbox import validate_file
 
 
 def test_valid_file_is_described_like_in_process(sample_files: dict[str, Path]) -> None:
@@ -30,23 +31,22 @@ def test_valid_file_is_described_like_in_process(sample_files: dict[str, Path]) 
 )
 def test_crashing_child_is_a_422(fault: str, exitcode: int, monkeypatch: pytest.MonkeyPatch,
                                  sample_files: dict[str, Path]) -> None:
-    monkeypatch.setenv(FAULT_ENV, fault)
-    with pytest.raises(ValidationFailure) as info:
+    with pytest.raises(InputError) as info:
         validate_file(sample_files["observations"], role="observations", timeout=120,
-                      memory_bytes=None, display_name="obs.nc")
+                      memory_bytes=None, display_name="obs.nc", fault=fault)
     failure = info.value
-    assert (failure.status, failure.code) == (422, "validation_crashed")
+    assert (failure.http_status, failure.code) == (422, "validation_crashed")
     assert failure.detail["exitcode"] == exitcode
     assert "obs.nc" in failure.message
 
 
 def test_hanging_child_is_killed_at_the_timeout(monkeypatch: pytest.MonkeyPatch,
                                                 sample_files: dict[str, Path]) -> None:
-    monkeypatch.setenv(FAULT_ENV, "sleep")
+    fault = "sleep"
     started = time.monotonic()
-    with pytest.raises(ValidationFailure) as info:
+    with pytest.raises(InputError) as info:
         validate_file(sample_files["observations"], role="observations", timeout=3,
-                      memory_bytes=None)
+                      memory_bytes=None, fault=fault)
     elapsed = time.monotonic() - started
     assert info.value.code == "validation_timeout"
     assert 3 <= elapsed < 20, elapsed
@@ -56,11 +56,11 @@ def test_memory_limit_is_enforced_in_the_child(monkeypatch: pytest.MonkeyPatch,
                                                sample_files: dict[str, Path]) -> None:
     # the hook allocates twice the limit; without RLIMIT_AS in the child this would succeed
     # (1 GiB on a 24 GiB machine) and the file would validate
-    monkeypatch.setenv(FAULT_ENV, "allocate")
+    fault = "allocate"
     limit = 512 * 1024**2
-    with pytest.raises(ValidationFailure) as info:
+    with pytest.raises(InputError) as info:
         validate_file(sample_files["observations"], role="observations", timeout=120,
-                      memory_bytes=limit)
+                      memory_bytes=limit, fault=fault)
     assert info.value.code == "validation_memory"
     assert info.value.detail["memory_bytes"] == limit
     # the parent's own limit is untouched
@@ -71,9 +71,9 @@ def test_memory_limit_is_enforced_in_the_child(monkeypatch: pytest.MonkeyPatch,
 def test_truncated_file_is_refused(tmp_path: Path, sample_files: dict[str, Path]) -> None:
     cut = tmp_path / "cut.nc"
     cut.write_bytes(sample_files["realistic"].read_bytes()[:300_000])
-    with pytest.raises(ValidationFailure) as info:
+    with pytest.raises(InputError) as info:
         validate_file(cut, role="hindcast", timeout=120, memory_bytes=2 * 1024**3)
-    assert info.value.status == 422
+    assert info.value.http_status == 422
     assert info.value.code in ("invalid_input", "validation_crashed")
     assert "cut.nc" in info.value.message
 

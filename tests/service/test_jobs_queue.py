@@ -16,7 +16,7 @@ from sqlalchemy import select
 
 from app.jobs import queue
 from app.jobs.queue import Claim, LeaseLost
-from app.store import Store, repo
+from app.store import Store, job_rows
 from app.store.models import Job, JobAttempt
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
@@ -27,13 +27,13 @@ def _enqueue(store: Store, n: int, *, kind: str = "score", max_attempts: int = 3
     for i in range(n):
         with store.db.write() as session:
             ids.append(
-                repo.new_job(session, kind=kind, payload={"n": i}, max_attempts=max_attempts).id
+                job_rows.new_job(session, kind=kind, payload={"n": i}, max_attempts=max_attempts).id
             )
     return ids
 
 
 def _history(store: Store, job_id: str) -> list[tuple[int, str, str | None]]:
-    return [(a["attempt"], a["worker"], a["outcome"]) for a in repo.job_attempts(store, job_id)]
+    return [(a["attempt"], a["worker"], a["outcome"]) for a in job_rows.job_attempts(store, job_id)]
 
 
 def _forged(claim: Claim) -> Claim:
@@ -48,7 +48,7 @@ def test_claim_takes_the_oldest_and_commits_at_once(store: Store) -> None:
         ids[0], "score", {"n": 0}, 1, 1,
     )
     # the claim is committed: another connection sees it now, and can write
-    job = repo.get_job(store, ids[0])
+    job = job_rows.get_job(store, ids[0])
     assert job["status"] == "running" and job["attempts"] == 1
     with store.db.write() as session:
         row = session.get(Job, ids[0])
@@ -89,17 +89,17 @@ def test_every_update_checks_the_owner_token(store: Store) -> None:
         queue.fail(store, forged, "forged", retry=False)
     with pytest.raises(LeaseLost):
         queue.release(store, forged)
-    job = repo.get_job(store, job_id)
+    job = job_rows.get_job(store, job_id)
     assert (job["status"], job["progress"], job["error"]) == ("running", 0.0, None)
     assert recorded == []
     queue.report_progress(store, claim, 0.25, "reduced 3/12 rows")
-    assert repo.get_job(store, job_id)["progress"] == 0.25
-    assert repo.get_job(store, job_id)["message"] == "reduced 3/12 rows"
+    assert job_rows.get_job(store, job_id)["progress"] == 0.25
+    assert job_rows.get_job(store, job_id)["message"] == "reduced 3/12 rows"
     queue.report_progress(store, claim, 7.0)  # clipped into 0..1
-    assert repo.get_job(store, job_id)["progress"] == 1.0
+    assert job_rows.get_job(store, job_id)["progress"] == 1.0
     queue.complete(store, claim, lambda session: recorded.append("owner"))
     assert recorded == ["owner"]
-    job = repo.get_job(store, job_id)
+    job = job_rows.get_job(store, job_id)
     assert job["status"] == "done" and job["finished_at"] is not None
     with pytest.raises(LeaseLost):  # done is final: the old claim can do nothing more
         queue.report_progress(store, claim, 0.5)
@@ -125,7 +125,7 @@ def test_expired_lease_is_taken_over_and_the_old_owner_is_fenced(store: Store) -
     queue.complete(store, new, lambda s: recorded.append("new"))
     assert recorded == ["new"]
     assert _history(store, job_id) == [(1, "old", "expired"), (2, "new", "done")]
-    attempts = repo.job_attempts(store, job_id)
+    attempts = job_rows.job_attempts(store, job_id)
     # the takeover happened only after the first owner's lease had ended
     assert attempts[1]["claimed_at"] >= attempts[0]["claimed_at"]
     with store.db.read() as session:
@@ -159,7 +159,7 @@ def test_expired_leases_up_to_max_attempts_then_failed(store: Store) -> None:
         assert claim is not None and claim.job_id == job_id
         time.sleep(0.45)
     assert queue.claim_next(store, worker="c", lease_seconds=0.3) is None
-    job = repo.get_job(store, job_id)
+    job = job_rows.get_job(store, job_id)
     assert job["status"] == "failed" and job["attempts"] == 2
     assert "gave up after 2 attempts" in job["error"]
     assert "worker b stopped renewing its lease" in job["error"]
@@ -177,9 +177,9 @@ def test_errors_are_retried_then_failed_with_the_error(store: Store) -> None:
                        retry_delay_seconds=0)
         )
         if i < 2:
-            assert "retrying" in repo.get_job(store, job_id)["message"]
+            assert "retrying" in job_rows.get_job(store, job_id)["message"]
     assert outcomes == ["queued", "queued", "failed"]
-    job = repo.get_job(store, job_id)
+    job = job_rows.get_job(store, job_id)
     assert job["status"] == "failed" and job["error"] == "OSError: disk hiccup 2"
     assert [h[2] for h in _history(store, job_id)] == ["retry", "retry", "failed"]
 
@@ -200,7 +200,7 @@ def test_error_without_retry_fails_at_once(store: Store) -> None:
     claim = queue.claim_next(store, worker="w")
     assert claim is not None
     assert queue.fail(store, claim, "invalid_input: no overlap", retry=False) == "failed"
-    job = repo.get_job(store, job_id)
+    job = job_rows.get_job(store, job_id)
     assert (job["status"], job["attempts"], job["error"]) == (
         "failed", 1, "invalid_input: no overlap",
     )
@@ -211,7 +211,7 @@ def test_release_does_not_count_as_an_attempt(store: Store) -> None:
     claim = queue.claim_next(store, worker="stopping")
     assert claim is not None
     queue.release(store, claim)
-    assert repo.get_job(store, job_id)["status"] == "queued"
+    assert job_rows.get_job(store, job_id)["status"] == "queued"
     again = queue.claim_next(store, worker="next")
     assert again is not None and (again.attempt, again.sequence) == (1, 2)
     queue.complete(store, again)
@@ -250,7 +250,7 @@ def test_concurrent_threads_never_share_a_job(store: Store) -> None:
     counts = Counter(job for job, _ in taken)
     assert sorted(counts) == sorted(ids) and set(counts.values()) == {1}
     assert len({w for _, w in taken}) > 1  # the claims really were spread over threads
-    assert repo.job_counts(store)["done"] == 120
+    assert job_rows.job_counts(store)["done"] == 120
     with store.db.read() as session:
         attempts = session.scalars(select(JobAttempt)).all()
         assert len(attempts) == 120 and {a.attempt for a in attempts} == {1}
@@ -294,4 +294,4 @@ def test_concurrent_processes_never_share_a_job(store: Store) -> None:
     claimed = [job for got in results for job in got]
     assert sorted(claimed) == sorted(ids)  # each job exactly once over all processes
     assert sum(1 for got in results if got) > 1  # several processes really competed
-    assert repo.job_counts(store)["done"] == 80
+    assert job_rows.job_counts(store)["done"] == 80

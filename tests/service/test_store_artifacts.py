@@ -14,7 +14,7 @@ import pytest
 from sqlalchemy import func, select
 
 from app.errors import NotFoundError
-from app.store import Store, repo
+from app.store import Store, common, derived_files
 from app.store.artifacts import ArtifactRef, ArtifactStore, ArtifactTooLarge
 from app.store.models import Artifact
 
@@ -143,21 +143,21 @@ def test_rows_only_for_whole_files(store: Store) -> None:
     partial = ArtifactRef(ref.sha256, ref.size_bytes + 100, ref.path)
     for bad in (missing, partial):
         with pytest.raises(RuntimeError), store.db.write() as session:
-            repo.record_artifact(session, bad)
+            common.record_artifact(session, bad)
     assert _artifact_rows(store) == 0
     with store.db.write() as session:
-        repo.record_artifact(session, ref)
-        repo.record_artifact(session, ref)  # recording twice is harmless
+        common.record_artifact(session, ref)
+        common.record_artifact(session, ref)  # recording twice is harmless
     assert _artifact_rows(store) == 1
 
 
 def test_cached_derived_files(store: Store) -> None:
     key = "digest:skill:all:acc_of_region_mean.png"
-    assert repo.get_cached(store, key) is None
+    assert derived_files.get_cached(store, key) is None
     png = b"\x89PNG\r\n\x1a\n" + b"0" * 100
-    path = repo.put_cached(store, key, png, media_type="image/png")
+    path = derived_files.put_cached(store, key, png, media_type="image/png")
     assert path.read_bytes() == png
-    assert repo.get_cached(store, key) == (path, "image/png")
+    assert derived_files.get_cached(store, key) == (path, "image/png")
     # the first stored picture wins; a second render under the same key is not recorded
-    repo.put_cached(store, key, png + b"1", media_type="image/png")
-    assert repo.get_cached(store, key) == (path, "image/png")
+    derived_files.put_cached(store, key, png + b"1", media_type="image/png")
+    assert derived_files.get_cached(store, key) == (path, "image/png")

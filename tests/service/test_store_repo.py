@@ -9,14 +9,14 @@ from typing import Any
 import pytest
 from sqlalchemy import func, select
 
-from app.errors import NotFoundError, ParameterError
-from app.store import Store, repo
+from app.errors import ConflictError, NotFoundError, ParameterError, ResultNotReady
+from app.store import Store, comparison_rows, dataset_rows, experiment_rows, job_rows, token_rows
 from app.store.models import Dataset, Experiment, Job, Token
 
 
 def _dataset(store: Store, role: str, content: bytes, **description: Any) -> dict[str, Any]:
     ref = store.artifacts.put_bytes(content, media_type="application/x-netcdf")
-    ds, created = repo.create_dataset(
+    ds, created = dataset_rows.create_dataset(
         store,
         role=role,
         sha256=ref.sha256,
@@ -49,17 +49,17 @@ def test_dataset_by_sha256(store: Store) -> None:
     ds = _dataset(store, "hindcast", b"bytes of a hindcast", members=10)
     assert ds["role"] == "hindcast" and ds["members"] == 10 and ds["source"] == "upload"
     assert ds["sha256"] == hashlib.sha256(b"bytes of a hindcast").hexdigest()
-    assert repo.get_dataset(store, ds["id"]) == ds
-    assert repo.find_dataset(store, ds["sha256"]) == ds
-    assert repo.dataset_path(store, ds["id"]).read_bytes() == b"bytes of a hindcast"
+    assert dataset_rows.get_dataset(store, ds["id"]) == ds
+    assert dataset_rows.find_dataset(store, ds["sha256"]) == ds
+    assert dataset_rows.dataset_path(store, ds["id"]).read_bytes() == b"bytes of a hindcast"
     ref = store.artifacts.put_bytes(b"bytes of a hindcast")
-    again, created = repo.create_dataset(
+    again, created = dataset_rows.create_dataset(
         store, role="hindcast", sha256=ref.sha256, size_bytes=ref.size_bytes,
         description={}, artifact=ref,
     )
     assert not created and again == ds
-    with pytest.raises(repo.ConflictError, match="hindcast") as info:
-        repo.create_dataset(
+    with pytest.raises(ConflictError, match="hindcast") as info:
+        dataset_rows.create_dataset(
             store, role="observations", sha256=ref.sha256, size_bytes=ref.size_bytes,
             description={}, artifact=ref,
         )
@@ -70,12 +70,12 @@ def test_dataset_by_sha256(store: Store) -> None:
 def test_registered_dataset_points_at_its_path(store: Store, tmp_path: Any) -> None:
     path = tmp_path / "roots" / "obs.zarr"
     path.mkdir(parents=True)
-    ds, created = repo.create_dataset(
+    ds, created = dataset_rows.create_dataset(
         store, role="observations", sha256="c" * 64, size_bytes=0, description={},
         source="register", uri=str(path),
     )
     assert created and ds["uri"] == str(path) and ds["source"] == "register"
-    assert repo.dataset_path(store, ds["id"]) == path
+    assert dataset_rows.dataset_path(store, ds["id"]) == path
 
 
 @pytest.mark.parametrize(
@@ -92,13 +92,13 @@ def test_dataset_argument_errors(store: Store, kwargs: dict[str, Any], message: 
                             "description": {}}
     args.update(kwargs)
     with pytest.raises(ParameterError, match=message):
-        repo.create_dataset(store, **args)
+        dataset_rows.create_dataset(store, **args)
     assert _count(store, Dataset) == 0
 
 
 def test_unknown_ids(store: Store) -> None:
-    for call in (repo.get_dataset, repo.get_experiment, repo.get_job, repo.get_comparison,
-                 repo.result_files, repo.job_attempts, repo.revoke_token):
+    for call in (dataset_rows.get_dataset, experiment_rows.get_experiment, job_rows.get_job, comparison_rows.get_comparison,
+                 experiment_rows.result_files, job_rows.job_attempts, token_rows.revoke_token):
         with pytest.raises(NotFoundError):
             call(store, "nope_0000")
 
@@ -113,7 +113,7 @@ def test_same_bytes_posted_concurrently_give_one_dataset(store: Store) -> None:
         try:
             barrier.wait()
             results.append(
-                repo.create_dataset(
+                dataset_rows.create_dataset(
                     store, role="hindcast", sha256=ref.sha256, size_bytes=ref.size_bytes,
                     description={}, artifact=ref,
                 )
@@ -137,8 +137,8 @@ def test_same_bytes_posted_concurrently_give_one_dataset(store: Store) -> None:
 
 def test_experiment_and_job_in_one_transaction(store: Store) -> None:
     ids = _trio(store)
-    exp = repo.create_experiment(
-        store, name="spring pair", options={"resamples": 50, "seed": 3},
+    exp = experiment_rows.create_experiment(
+        store, name="spring pair", options={"bootstrap": {"resamples": 50, "seed": 3}},
         parameters={"name": "spring pair", "bootstrap": {"resamples": 50}}, **ids,
     )
     assert exp["status"] == "queued" and exp["job"]["status"] == "queued"
@@ -148,29 +148,29 @@ def test_experiment_and_job_in_one_transaction(store: Store) -> None:
     assert exp["provenance"]["inputs"]["realistic"]["sha256"] == hashlib.sha256(
         b"realistic"
     ).hexdigest()
-    job = repo.get_job(store, exp["job"]["id"])
+    job = job_rows.get_job(store, exp["job"]["id"])
     assert job["experiment_id"] == exp["id"] and job["kind"] == "score"
     assert job["attempts"] == 0 and job["max_attempts"] == store.settings.max_attempts
     with store.db.read() as session:
         payload = session.get(Job, exp["job"]["id"]).payload  # type: ignore[union-attr]
-    assert payload["options"] == {"resamples": 50, "seed": 3}
+    assert payload["options"] == {"bootstrap": {"resamples": 50, "seed": 3}}
     assert payload["inputs"]["observations"]["path"] == str(
-        repo.dataset_path(store, ids["observations"])
+        dataset_rows.dataset_path(store, ids["observations"])
     )
-    assert repo.get_experiment(store, exp["id"]) == exp
+    assert experiment_rows.get_experiment(store, exp["id"]) == exp
 
 
 def test_wrong_role_or_unknown_dataset_leaves_no_rows(store: Store) -> None:
     ids = _trio(store)
     with pytest.raises(ParameterError, match="observations slot needs") as info:
-        repo.create_experiment(
+        experiment_rows.create_experiment(
             store, name="bad", options={}, **{**ids, "observations": ids["scrambled"]}
         )
     assert info.value.detail["slot"] == "observations"
     with pytest.raises(NotFoundError, match="land_state"):
-        repo.create_experiment(store, name="bad", options={}, land_state="ds_missing", **ids)
+        experiment_rows.create_experiment(store, name="bad", options={}, land_state="ds_missing", **ids)
     with pytest.raises(ParameterError, match="name"):
-        repo.create_experiment(store, name="  ", options={}, **ids)
+        experiment_rows.create_experiment(store, name="  ", options={}, **ids)
     assert _count(store, Experiment) == 0
     assert _count(store, Job) == 0
 
@@ -180,7 +180,7 @@ def test_list_experiments_filters_and_pages(store: Store) -> None:
     made = []
     for i in range(7):
         made.append(
-            repo.create_experiment(
+            experiment_rows.create_experiment(
                 store, name=f"exp{i % 3}", options={"variable": "tas" if i % 2 else "pr"},
                 **ids,
             )
@@ -188,39 +188,39 @@ def test_list_experiments_filters_and_pages(store: Store) -> None:
     # mark one job done to filter by status
     with store.db.write() as session:
         session.get(Job, made[4]["job"]["id"]).status = "done"  # type: ignore[union-attr]
-    page = repo.list_experiments(store, limit=3)
+    page = experiment_rows.list_experiments(store, limit=3)
     assert page["total"] == 7 and page["limit"] == 3 and page["offset"] == 0
     newest_first = [e["id"] for e in reversed(made)]
     assert [e["id"] for e in page["items"]] == newest_first[:3]
-    rest = repo.list_experiments(store, limit=3, offset=3)
+    rest = experiment_rows.list_experiments(store, limit=3, offset=3)
     assert [e["id"] for e in rest["items"]] == newest_first[3:6]
-    assert repo.list_experiments(store, offset=6)["items"][0]["id"] == newest_first[6]
-    by_name = repo.list_experiments(store, name="exp1")
+    assert experiment_rows.list_experiments(store, offset=6)["items"][0]["id"] == newest_first[6]
+    by_name = experiment_rows.list_experiments(store, name="exp1")
     assert sorted(e["id"] for e in by_name["items"]) == sorted(
         e["id"] for i, e in enumerate(made) if i % 3 == 1
     )
-    assert repo.list_experiments(store, variable="pr")["total"] == 4
-    done = repo.list_experiments(store, status="done")
+    assert experiment_rows.list_experiments(store, variable="pr")["total"] == 4
+    done = experiment_rows.list_experiments(store, status="done")
     assert [e["id"] for e in done["items"]] == [made[4]["id"]]
-    assert repo.list_experiments(store, status="queued", variable="tas")["total"] == 3
+    assert experiment_rows.list_experiments(store, status="queued", variable="tas")["total"] == 3
     for bad in ({"status": "paused"}, {"limit": 0}, {"limit": 501}, {"offset": -1}):
         with pytest.raises(ParameterError):
-            repo.list_experiments(store, **bad)  # type: ignore[arg-type]
+            experiment_rows.list_experiments(store, **bad)  # type: ignore[arg-type]
 
 
 def test_results_only_after_the_job_is_done(store: Store) -> None:
-    exp = repo.create_experiment(store, name="r", options={}, **_trio(store))
-    with pytest.raises(repo.ResultNotReady) as info:
-        repo.result_files(store, exp["id"])
+    exp = experiment_rows.create_experiment(store, name="r", options={}, **_trio(store))
+    with pytest.raises(ResultNotReady) as info:
+        experiment_rows.result_files(store, exp["id"])
     assert info.value.http_status == 409 and info.value.detail["status"] == "queued"
-    with pytest.raises(repo.ResultNotReady):
-        repo.result_digest(store, exp["id"])
+    with pytest.raises(ResultNotReady):
+        experiment_rows.result_digest(store, exp["id"])
     refs = {
         name: store.artifacts.put_bytes(name.encode() * 10)
         for name in ("skill.json", "maps.nc", "result.json")
     }
     with store.db.write() as session:
-        digest = repo.record_score_result(
+        digest = experiment_rows.record_score_result(
             session, experiment_id=exp["id"], files=refs, provenance={"seed": 1}
         )
         session.get(Job, exp["job"]["id"]).status = "done"  # type: ignore[union-attr]
@@ -228,48 +228,47 @@ def test_results_only_after_the_job_is_done(store: Store) -> None:
     expected = hashlib.sha256(
         "\n".join(f"{n}:{refs[n].sha256}" for n in sorted(refs)).encode()
     ).hexdigest()
-    assert digest == expected == repo.result_digest(store, exp["id"])
-    files = repo.result_files(store, exp["id"])
+    assert digest == expected == experiment_rows.result_digest(store, exp["id"])
+    files = experiment_rows.result_files(store, exp["id"])
     assert {n: p.read_bytes() for n, p in files.items()} == {
         n: n.encode() * 10 for n in refs
     }
-    assert repo.get_experiment(store, exp["id"])["provenance"]["result"] == {"seed": 1}
+    assert experiment_rows.get_experiment(store, exp["id"])["provenance"]["result"] == {"seed": 1}
 
 
 def test_comparison_needs_two_finished_experiments(store: Store) -> None:
-    a = repo.create_experiment(store, name="a", options={}, **_trio(store, "a"))
-    b = repo.create_experiment(store, name="b", options={}, **_trio(store, "b"))
+    a = experiment_rows.create_experiment(store, name="a", options={}, **_trio(store, "a"))
+    b = experiment_rows.create_experiment(store, name="b", options={}, **_trio(store, "b"))
     with pytest.raises(ParameterError, match="same experiment"):
-        repo.create_comparison(store, baseline=a["id"], candidate=a["id"])
-    with pytest.raises(repo.ResultNotReady):
-        repo.create_comparison(store, baseline=a["id"], candidate=b["id"])
+        comparison_rows.create_comparison(store, baseline=a["id"], candidate=a["id"])
+    with pytest.raises(ResultNotReady):
+        comparison_rows.create_comparison(store, baseline=a["id"], candidate=b["id"])
     with pytest.raises(NotFoundError):
-        repo.create_comparison(store, baseline=a["id"], candidate="ex_missing")
-    for bad in ({"resamples": 0}, {"resamples": 10001}, {"confidence": 1.0}):
-        with pytest.raises(ParameterError):
-            repo.create_comparison(store, baseline=a["id"], candidate=b["id"], **bad)  # type: ignore[arg-type]
+        comparison_rows.create_comparison(store, baseline=a["id"], candidate="ex_missing")
     with store.db.write() as session:
         for e in (a, b):
             session.get(Job, e["job"]["id"]).status = "done"  # type: ignore[union-attr]
-    cmp = repo.create_comparison(store, baseline=a["id"], candidate=b["id"], resamples=50)
+    cmp = comparison_rows.create_comparison(
+        store, baseline=a["id"], candidate=b["id"], options={"bootstrap": {"resamples": 50}}
+    )
     assert cmp["status"] == "queued" and cmp["result"] is None
-    job = repo.get_job(store, cmp["job"]["id"])
+    job = job_rows.get_job(store, cmp["job"]["id"])
     assert job["kind"] == "compare" and job["comparison_id"] == cmp["id"]
 
 
 def test_job_counts(store: Store) -> None:
-    assert repo.job_counts(store) == {"queued": 0, "running": 0, "done": 0, "failed": 0}
+    assert job_rows.job_counts(store) == {"queued": 0, "running": 0, "done": 0, "failed": 0}
     ids = _trio(store)
     for i in range(3):
-        repo.create_experiment(store, name=f"c{i}", options={}, **ids)
-    assert repo.job_counts(store) == {"queued": 3, "running": 0, "done": 0, "failed": 0}
+        experiment_rows.create_experiment(store, name=f"c{i}", options={}, **ids)
+    assert job_rows.job_counts(store) == {"queued": 3, "running": 0, "done": 0, "failed": 0}
 
 
 # ----------------------------------------------------------------------------- tokens
 
 
 def test_tokens_are_stored_hashed(store: Store) -> None:
-    token, info = repo.create_token(store, name="dashboard", scope="read")
+    token, info = token_rows.create_token(store, name="dashboard", scope="read")
     assert token.startswith("ll_") and len(token) > 40
     assert info["prefix"] == token[:11] and info["scope"] == "read"
     with store.db.read() as session:
@@ -280,19 +279,19 @@ def test_tokens_are_stored_hashed(store: Store) -> None:
     assert all(token not in value for value in stored)
     assert token_hash == hashlib.sha256(token.encode()).hexdigest()
     assert all("hash" not in key for key in info)
-    verified = repo.verify_token(store, token)
+    verified = token_rows.verify_token(store, token)
     assert verified is not None and verified["id"] == info["id"]
     for bad in (None, "", token + "x", token[:-1] + ("A" if token[-1] != "A" else "B"),
                 "Bearer " + token, "ll_" + "x" * 300):
-        assert repo.verify_token(store, bad) is None
-    repo.revoke_token(store, info["id"])
-    assert repo.verify_token(store, token) is None
-    assert repo.list_tokens(store)[0]["revoked_at"] is not None
+        assert token_rows.verify_token(store, bad) is None
+    token_rows.revoke_token(store, info["id"])
+    assert token_rows.verify_token(store, token) is None
+    assert token_rows.list_tokens(store)[0]["revoked_at"] is not None
 
 
 def test_scopes(store: Store) -> None:
     allowed = {
-        (have, need): repo.scope_allows(have, need)
+        (have, need): token_rows.scope_allows(have, need)
         for have in ("read", "write", "admin")
         for need in ("read", "write", "admin")
     }
@@ -301,12 +300,12 @@ def test_scopes(store: Store) -> None:
         ("write", "read"): True, ("write", "write"): True, ("write", "admin"): False,
         ("admin", "read"): True, ("admin", "write"): True, ("admin", "admin"): True,
     }
-    assert not repo.scope_allows("root", "read")
+    assert not token_rows.scope_allows("root", "read")
     with pytest.raises(ParameterError, match="scope"):
-        repo.create_token(store, name="x", scope="root")
+        token_rows.create_token(store, name="x", scope="root")
     with pytest.raises(ParameterError, match="name"):
-        repo.create_token(store, name="", scope="read")
+        token_rows.create_token(store, name="", scope="read")
 
 
 def test_ping(store: Store) -> None:
-    assert repo.ping(store) is True
+    assert store.db.ping() is True

@@ -8,17 +8,17 @@ from collections.abc import Callable
 from pathlib import Path
 
 import pytest
+from run_support import run_options
 
-from app.cube.engine import ScoreOptions
 from app.settings import Settings
-from app.store import Store, repo
+from app.store import Store, experiment_rows, job_rows, token_rows
 from app.store.migrate import head_revision, upgrade
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 
 
 def _landlift(env: dict[str, str], *args: str, timeout: float = 120) -> subprocess.CompletedProcess:
-    # the lead's entry point (app.cli) registers these commands through add_service_commands
+    # the console script's module (app.cli.main) registers these commands from app.cli.service
     return subprocess.run(
         [sys.executable, "-m", "app.cli", *args],
         cwd=REPO_ROOT, env=env, capture_output=True, text=True, timeout=timeout,
@@ -50,14 +50,14 @@ def test_token_create_prints_the_token_alone(
     assert token not in made.stderr
     store = Store.open(settings)
     try:
-        info = repo.verify_token(store, token)
+        info = token_rows.verify_token(store, token)
         assert info is not None and (info["scope"], info["name"]) == ("write", "ci robot")
         listed = _landlift(settings_env, "token", "list")
         assert listed.returncode == 0 and info["id"] in listed.stdout
         assert token not in listed.stdout and info["prefix"] in listed.stdout
         revoked = _landlift(settings_env, "token", "revoke", info["id"])
         assert revoked.returncode == 0, revoked.stderr
-        assert repo.verify_token(store, token) is None
+        assert token_rows.verify_token(store, token) is None
     finally:
         store.close()
 
@@ -72,22 +72,22 @@ def test_worker_command_runs_queued_jobs(
     store: Store,
     ingest_sample: Callable[..., dict[str, str]],
 ) -> None:
-    options = ScoreOptions(resamples=50, seed=3).to_dict()
+    options = run_options(resamples=50, seed=3).dump()
     ids = ingest_sample(("realistic", "scrambled", "observations"))
-    exps = [repo.create_experiment(store, name=f"w{i}", options=options, **ids) for i in range(2)]
+    exps = [experiment_rows.create_experiment(store, name=f"w{i}", options=options, **ids) for i in range(2)]
     once = _landlift(settings_env, "worker", "--once", "--name", "cli-worker")
     assert once.returncode == 0, once.stderr
     assert "1 job(s) processed" in once.stderr
-    assert [repo.get_job(store, e["job"]["id"])["status"] for e in exps] == ["done", "queued"]
+    assert [job_rows.get_job(store, e["job"]["id"])["status"] for e in exps] == ["done", "queued"]
     drained = _landlift(settings_env, "worker", "--drain")
     assert drained.returncode == 0 and "1 job(s) processed" in drained.stderr
-    assert repo.get_job(store, exps[1]["job"]["id"])["status"] == "done"
-    assert repo.job_attempts(store, exps[0]["job"]["id"])[0]["worker"] == "cli-worker"
+    assert job_rows.get_job(store, exps[1]["job"]["id"])["status"] == "done"
+    assert job_rows.job_attempts(store, exps[0]["job"]["id"])[0]["worker"] == "cli-worker"
 
 
-def test_service_cli_module_entry(settings_env: dict[str, str]) -> None:
+def test_cli_module_entry(settings_env: dict[str, str]) -> None:
     out = subprocess.run(
-        [sys.executable, "-m", "app.service_cli", "--help"],
+        [sys.executable, "-m", "app.cli", "--help"],
         cwd=REPO_ROOT, env=settings_env, capture_output=True, text=True, timeout=60,
     )
     assert out.returncode == 0

@@ -13,9 +13,10 @@ from collections import Counter
 from collections.abc import Callable
 from pathlib import Path
 
-from app.cube.engine import ScoreOptions
-from app.results.engine import score
-from app.store import Store, repo
+from run_support import run_options
+
+from app.runs.scoring import score_files
+from app.store import Store, experiment_rows, job_rows
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 N_JOBS = 8
@@ -31,7 +32,7 @@ def test_workers_side_by_side_share_a_batch(
     ids = ingest_sample(("realistic", "scrambled", "observations"))
     seeds = list(range(N_JOBS))
     exps = [
-        repo.create_experiment(store, name=f"batch {s}", options=ScoreOptions(resamples=40, seed=s).to_dict(), **ids)
+        experiment_rows.create_experiment(store, name=f"batch {s}", options=run_options(resamples=40, seed=s).dump(), **ids)
         for s in seeds
     ]
     workers = [
@@ -47,9 +48,9 @@ def test_workers_side_by_side_share_a_batch(
 
     owners: Counter[str] = Counter()
     for exp in exps:
-        job = repo.get_job(store, exp["job"]["id"])
+        job = job_rows.get_job(store, exp["job"]["id"])
         assert (job["status"], job["attempts"]) == ("done", 1), job
-        history = repo.job_attempts(store, exp["job"]["id"])
+        history = job_rows.job_attempts(store, exp["job"]["id"])
         assert len(history) == 1 and history[0]["outcome"] == "done"
         owners[history[0]["worker"]] += 1
     assert sum(owners.values()) == N_JOBS
@@ -59,9 +60,9 @@ def test_workers_side_by_side_share_a_batch(
     assert processed == N_JOBS
     # a retried or shared job would change nothing either: results equal a direct engine run
     for seed in (seeds[0], seeds[-1]):
-        stored = repo.load_result(store, exps[seed]["id"])
-        direct = score(
+        stored = experiment_rows.load_result(store, exps[seed]["id"])
+        direct = score_files(
             sample_files["realistic"], sample_files["scrambled"], sample_files["observations"],
-            options=ScoreOptions(resamples=40, seed=seed),
+            options=run_options(resamples=40, seed=seed),
         )
         assert stored.curves[0]["windows"] == direct.curves[0]["windows"]

@@ -18,14 +18,15 @@ from typing import Any
 
 import pytest
 import xarray as xr
+from run_support import run_options
 
-from app.cube.engine import ScoreOptions
-from app.results.engine import score
-from app.store import Store, repo
+from app.errors import ResultNotReady
+from app.runs.scoring import score_files
+from app.store import Store, experiment_rows, job_rows
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 LEASE = 3.0
-OPTIONS = ScoreOptions(resamples=50, seed=21)
+OPTIONS = run_options(resamples=50, seed=21)
 
 WORKER = r"""
 import os, sys, time
@@ -121,8 +122,8 @@ def test_killed_worker_is_taken_over_with_the_same_numbers(
     check_artifacts: Callable[[], int],
     tmp_path: Path,
 ) -> None:
-    exp = repo.create_experiment(
-        store, name="killed", options=OPTIONS.validate().to_dict(), **ingest_sample()
+    exp = experiment_rows.create_experiment(
+        store, name="killed", options=OPTIONS.validate().dump(), **ingest_sample()
     )
     job_id = exp["job"]["id"]
     events = tmp_path / "events.log"
@@ -135,7 +136,7 @@ def test_killed_worker_is_taken_over_with_the_same_numbers(
         # both alive for longer than a lease: the heartbeat keeps the job with the first worker
         time.sleep(LEASE + 1.5)
         assert not [e for e in _events(events) if e[1] == "second"]
-        job = repo.get_job(store, job_id)
+        job = job_rows.get_job(store, job_id)
         assert (job["status"], job["attempts"]) == ("running", 1)
         killed_at = _kill(first)
         second.wait(timeout=90)
@@ -146,9 +147,9 @@ def test_killed_worker_is_taken_over_with_the_same_numbers(
                 proc.kill()
                 proc.wait()
 
-    job = repo.get_job(store, job_id)
+    job = job_rows.get_job(store, job_id)
     assert (job["status"], job["attempts"], job["error"]) == ("done", 2, None)
-    history = repo.job_attempts(store, job_id)
+    history = job_rows.job_attempts(store, job_id)
     assert [(h["attempt"], h["worker"], h["outcome"]) for h in history] == [
         (1, "first", "expired"),
         (2, "second", "done"),
@@ -164,8 +165,8 @@ def test_killed_worker_is_taken_over_with_the_same_numbers(
     assert [e for _, n, _, e in _events(events) if n == "first" and e == "end"] == []
 
     # the same numbers as an uninterrupted run of the engine with the same seed
-    result = repo.load_result(store, exp["id"])
-    reference = score(
+    result = experiment_rows.load_result(store, exp["id"])
+    reference = score_files(
         sample_files["realistic"], sample_files["scrambled"], sample_files["observations"],
         sample_files["land_state"], options=OPTIONS,
     )
@@ -180,8 +181,8 @@ def test_killed_on_every_attempt_then_failed(
     ingest_sample: Callable[..., dict[str, str]],
     tmp_path: Path,
 ) -> None:
-    exp = repo.create_experiment(
-        store, name="doomed", options=OPTIONS.to_dict(), max_attempts=2,
+    exp = experiment_rows.create_experiment(
+        store, name="doomed", options=OPTIONS.dump(), max_attempts=2,
         **ingest_sample(("realistic", "scrambled", "observations")),
     )
     job_id = exp["job"]["id"]
@@ -199,17 +200,17 @@ def test_killed_on_every_attempt_then_failed(
         time.sleep(LEASE + 0.5)
     last = _spawn(worker_env, events, "three", pause=0)
     try:
-        _wait(lambda: repo.get_job(store, job_id)["status"] == "failed", 30, "the job to fail")
+        _wait(lambda: job_rows.get_job(store, job_id)["status"] == "failed", 30, "the job to fail")
     finally:
         last.kill()
         last.wait()
-    job = repo.get_job(store, job_id)
+    job = job_rows.get_job(store, job_id)
     assert job["attempts"] == 2
     assert job["error"].startswith("gave up after 2 attempts: worker two stopped renewing")
-    assert [(h["worker"], h["outcome"]) for h in repo.job_attempts(store, job_id)] == [
+    assert [(h["worker"], h["outcome"]) for h in job_rows.job_attempts(store, job_id)] == [
         ("one", "expired"),
         ("two", "expired"),
     ]
     assert not [e for e in _events(events) if e[1] == "three"]
-    with pytest.raises(repo.ResultNotReady):
-        repo.result_files(store, exp["id"])
+    with pytest.raises(ResultNotReady):
+        experiment_rows.result_files(store, exp["id"])

@@ -11,21 +11,23 @@ from typing import Any
 import numpy as np
 import pytest
 import xarray as xr
+from run_support import run_options
 from sqlalchemy import update
 
-from app.cube.engine import ScoreOptions
+from app.errors import ResultNotReady
 from app.jobs.handlers import JobContext, run_score
 from app.jobs.worker import Worker, start_worker_thread
-from app.results.engine import score
-from app.store import Store, repo
+from app.runs.options import RunOptions
+from app.runs.scoring import score_files
+from app.store import Store, comparison_rows, experiment_rows, job_rows
 from app.store.models import Job
 
-OPTIONS = ScoreOptions(resamples=50, seed=11)
+OPTIONS = run_options(resamples=50, seed=11)
 
 
-def _direct(sample_files: dict[str, Any], options: ScoreOptions = OPTIONS) -> Any:
+def _direct(sample_files: dict[str, Any], options: RunOptions = OPTIONS) -> Any:
     """The same scoring without the service (what `landlift score` runs)."""
-    return score(
+    return score_files(
         sample_files["realistic"],
         sample_files["scrambled"],
         sample_files["observations"],
@@ -54,22 +56,22 @@ def test_score_job_gives_the_engine_numbers(
     check_artifacts: Callable[[], int],
 ) -> None:
     ids = ingest_sample()
-    exp = repo.create_experiment(
-        store, name="sample", options=OPTIONS.validate().to_dict(), **ids
+    exp = experiment_rows.create_experiment(
+        store, name="sample", options=OPTIONS.validate().dump(), **ids
     )
     assert Worker(store).run(drain=True) == 1
-    job = repo.get_job(store, exp["job"]["id"])
+    job = job_rows.get_job(store, exp["job"]["id"])
     assert (job["status"], job["progress"], job["attempts"], job["error"]) == (
         "done", 1.0, 1, None,
     )
-    result = repo.load_result(store, exp["id"])
+    result = experiment_rows.load_result(store, exp["id"])
     reference = _direct(sample_files)
     assert _numbers(result.curves) == _numbers(reference.curves)
     xr.testing.assert_allclose(result.maps, reference.maps, rtol=0, atol=0)
-    assert set(repo.result_files(store, exp["id"])) >= {"skill.json", "maps.nc", "result.json"}
-    skill = json.loads(repo.result_files(store, exp["id"])["skill.json"].read_text())
+    assert set(experiment_rows.result_files(store, exp["id"])) >= {"skill.json", "maps.nc", "result.json"}
+    skill = json.loads(experiment_rows.result_files(store, exp["id"])["skill.json"].read_text())
     assert skill[0]["seed"] == 11 and skill[0]["resamples"] == 50
-    finished = repo.get_experiment(store, exp["id"])
+    finished = experiment_rows.get_experiment(store, exp["id"])
     assert finished["status"] == "done" and finished["finished_at"] is not None
     assert finished["provenance"]["result"]["seed"] == 11
     assert len(finished["result_digest"]) == 64
@@ -79,8 +81,8 @@ def test_score_job_gives_the_engine_numbers(
 def test_progress_is_reported_in_order(
     store: Store, ingest_sample: Callable[..., dict[str, str]]
 ) -> None:
-    exp = repo.create_experiment(
-        store, name="progress", options=OPTIONS.to_dict(), **ingest_sample()
+    exp = experiment_rows.create_experiment(
+        store, name="progress", options=OPTIONS.dump(), **ingest_sample()
     )
     seen: list[float] = []
 
@@ -89,13 +91,13 @@ def test_progress_is_reported_in_order(
 
         def progress(fraction: float, message: str = "") -> None:
             inner(fraction, message)
-            seen.append(repo.get_job(store, ctx.claim.job_id)["progress"])
+            seen.append(job_rows.get_job(store, ctx.claim.job_id)["progress"])
 
         ctx.progress = progress
         return run_score(ctx)
 
     Worker(store, handlers={"score": watched}, progress_interval=0.0).run(drain=True)
-    assert repo.get_job(store, exp["job"]["id"])["status"] == "done"
+    assert job_rows.get_job(store, exp["job"]["id"])["status"] == "done"
     assert len(seen) >= 3 and seen == sorted(seen) and 0.0 < seen[-2] < 1.0
 
 
@@ -103,22 +105,22 @@ def test_bad_options_fail_at_once_with_the_error(
     store: Store, ingest_sample: Callable[..., dict[str, str]]
 ) -> None:
     ids = ingest_sample(("realistic", "scrambled", "observations"))
-    exp = repo.create_experiment(
-        store, name="bad", options={**OPTIONS.to_dict(), "resamples": 0}, **ids
+    exp = experiment_rows.create_experiment(
+        store, name="bad", options={**OPTIONS.dump(), "resamples": 0}, **ids
     )
     Worker(store).run(drain=True)
-    job = repo.get_job(store, exp["job"]["id"])
+    job = job_rows.get_job(store, exp["job"]["id"])
     assert job["status"] == "failed" and job["attempts"] == 1
     assert job["error"].startswith("invalid_parameter: ") and "resamples" in job["error"]
-    with pytest.raises(repo.ResultNotReady):
-        repo.result_files(store, exp["id"])
+    with pytest.raises(ResultNotReady):
+        experiment_rows.result_files(store, exp["id"])
 
 
 def test_unexpected_errors_are_retried_then_failed(
     store: Store, ingest_sample: Callable[..., dict[str, str]]
 ) -> None:
-    exp = repo.create_experiment(
-        store, name="flaky", options=OPTIONS.to_dict(),
+    exp = experiment_rows.create_experiment(
+        store, name="flaky", options=OPTIONS.dump(),
         **ingest_sample(("realistic", "scrambled", "observations")),
     )
     calls: list[int] = []
@@ -129,22 +131,22 @@ def test_unexpected_errors_are_retried_then_failed(
 
     worker = Worker(store, handlers={"score": broken})
     deadline = time.monotonic() + 30
-    while repo.get_job(store, exp["job"]["id"])["status"] != "failed":
+    while job_rows.get_job(store, exp["job"]["id"])["status"] != "failed":
         worker.run(drain=True)
         assert time.monotonic() < deadline
         time.sleep(0.05)
-    job = repo.get_job(store, exp["job"]["id"])
+    job = job_rows.get_job(store, exp["job"]["id"])
     assert calls == [1, 2, 3] and job["attempts"] == 3
     assert job["error"] == "OSError: disk full on attempt 3"
-    outcomes = [a["outcome"] for a in repo.job_attempts(store, exp["job"]["id"])]
+    outcomes = [a["outcome"] for a in job_rows.job_attempts(store, exp["job"]["id"])]
     assert outcomes == ["retry", "retry", "failed"]
 
 
 def test_stopping_hands_the_job_back(
     store: Store, ingest_sample: Callable[..., dict[str, str]]
 ) -> None:
-    exp = repo.create_experiment(
-        store, name="stop", options=OPTIONS.to_dict(),
+    exp = experiment_rows.create_experiment(
+        store, name="stop", options=OPTIONS.dump(),
         **ingest_sample(("realistic", "scrambled", "observations")),
     )
     started = threading.Event()
@@ -164,16 +166,16 @@ def test_stopping_hands_the_job_back(
     stop.set()
     thread.join(10)
     assert not thread.is_alive()
-    job = repo.get_job(store, exp["job"]["id"])
+    job = job_rows.get_job(store, exp["job"]["id"])
     assert (job["status"], job["attempts"]) == ("queued", 0)
-    assert [a["outcome"] for a in repo.job_attempts(store, job["id"])] == ["released"]
+    assert [a["outcome"] for a in job_rows.job_attempts(store, job["id"])] == ["released"]
 
 
 def test_a_worker_that_lost_its_job_records_nothing(
     store: Store, ingest_sample: Callable[..., dict[str, str]]
 ) -> None:
-    exp = repo.create_experiment(
-        store, name="stolen", options=OPTIONS.to_dict(),
+    exp = experiment_rows.create_experiment(
+        store, name="stolen", options=OPTIONS.dump(),
         **ingest_sample(("realistic", "scrambled", "observations")),
     )
     outcome: list[str] = []
@@ -193,10 +195,10 @@ def test_a_worker_that_lost_its_job_records_nothing(
     worker = Worker(store, handlers={"score": robbed}, heartbeat_seconds=0.2)
     claimed = worker.run(once=True)
     assert claimed == 1 and outcome == []
-    job = repo.get_job(store, exp["job"]["id"])
+    job = job_rows.get_job(store, exp["job"]["id"])
     assert job["status"] == "running"  # still the thief's, untouched by the robbed worker
-    with pytest.raises(repo.ResultNotReady):
-        repo.result_files(store, exp["id"])
+    with pytest.raises(ResultNotReady):
+        experiment_rows.result_files(store, exp["id"])
 
 
 def test_compare_job(
@@ -204,22 +206,24 @@ def test_compare_job(
     ingest_sample: Callable[..., dict[str, str]],
     check_artifacts: Callable[[], int],
 ) -> None:
-    from app.results.compare import compare_results
+    from run_support import comparison_options
+
+    from app.runs.compare import compare_experiments
 
     ids = ingest_sample()
-    a = repo.create_experiment(store, name="a", options=OPTIONS.to_dict(), **ids)
-    b = repo.create_experiment(
-        store, name="b", options={**OPTIONS.to_dict(), "seed": 12}, **ids
+    a = experiment_rows.create_experiment(store, name="a", options=OPTIONS.dump(), **ids)
+    b = experiment_rows.create_experiment(
+        store, name="b", options=run_options(resamples=50, seed=12).dump(), **ids
     )
     Worker(store).run(drain=True)
-    cmp = repo.create_comparison(store, baseline=a["id"], candidate=b["id"], resamples=50, seed=5)
+    cmp = comparison_rows.create_comparison(
+        store, baseline=a["id"], candidate=b["id"],
+        options=comparison_options(resamples=50, seed=5).dump(),
+    )
     Worker(store).run(drain=True)
-    done = repo.get_comparison(store, cmp["id"])
+    done = comparison_rows.get_comparison(store, cmp["id"])
     assert done["status"] == "done", done["job"]
-    expected = compare_results(
-        repo.load_result(store, a["id"]), repo.load_result(store, b["id"]),
-        resamples=50, seed=5, confidence=0.95,
-    )
+    expected = compare_experiments(experiment_rows.load_result(store, a["id"]), experiment_rows.load_result(store, b["id"]), options=comparison_options(resamples=50, seed=5, confidence=0.95))
     assert done["result"] == json.loads(json.dumps(expected, sort_keys=True))
     check_artifacts()
 
@@ -227,19 +231,19 @@ def test_compare_job(
 def test_in_process_worker_thread(
     settings: Any, store: Store, ingest_sample: Callable[..., dict[str, str]]
 ) -> None:
-    exp = repo.create_experiment(store, name="thread", options=OPTIONS.to_dict(), **ingest_sample())
+    exp = experiment_rows.create_experiment(store, name="thread", options=OPTIONS.dump(), **ingest_sample())
     stop = threading.Event()
     thread = start_worker_thread(settings, stop_event=stop)
     try:
         deadline = time.monotonic() + 60
-        while repo.get_job(store, exp["job"]["id"])["status"] != "done":
+        while job_rows.get_job(store, exp["job"]["id"])["status"] != "done":
             assert time.monotonic() < deadline
             time.sleep(0.1)
     finally:
         stop.set()
         thread.join(10)
     assert not thread.is_alive()
-    assert np.isfinite(repo.load_result(store, exp["id"]).curve()["windows"][0]["gain"]["value"])
+    assert np.isfinite(experiment_rows.load_result(store, exp["id"]).curve()["windows"][0]["gain"]["value"])
 
 
 def test_score_job_on_a_dask_cluster(
@@ -257,14 +261,14 @@ def test_score_job_on_a_dask_cluster(
             artifacts=store.artifacts,
             settings=settings.model_copy(update={"dask_scheduler": cluster.scheduler_address}),
         )
-        exp = repo.create_experiment(
-            on_cluster, name="dask", options=OPTIONS.to_dict(), **ingest_sample()
+        exp = experiment_rows.create_experiment(
+            on_cluster, name="dask", options=OPTIONS.dump(), **ingest_sample()
         )
         Worker(on_cluster).run(drain=True)
         # the tile tasks went through this scheduler
         assert cluster.scheduler.task_prefixes
-    job = repo.get_job(store, exp["job"]["id"])
+    job = job_rows.get_job(store, exp["job"]["id"])
     assert job["status"] == "done", job["error"]
-    assert _numbers(repo.load_result(store, exp["id"]).curves) == _numbers(
+    assert _numbers(experiment_rows.load_result(store, exp["id"]).curves) == _numbers(
         _direct(sample_files).curves
     )

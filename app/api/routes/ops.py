@@ -9,37 +9,29 @@ from fastapi.responses import FileResponse, JSONResponse
 from prometheus_client import CONTENT_TYPE_LATEST, generate_latest
 
 from app.api.deps import StoreDep
-from app.store import repo
+from app.api.schemas import Health
+from app.provenance import code_version
 
 router = APIRouter(tags=["operations"])
 
 STATIC_DIR = Path(__file__).resolve().parents[1] / "static"
 
 
-def version() -> str:
-    try:
-        from importlib.metadata import version as _version
-
-        return _version("landlift")
-    except Exception:  # pragma: no cover - not installed
-        return "unknown"
-
-
-@router.get("/healthz")
+@router.get("/healthz", response_model=Health, responses={503: {"model": Health}})
 def healthz(store: StoreDep) -> JSONResponse:
     """``{"status": "ok", "database": "ok", "version"}``; 503 when the database does not answer."""
     try:
-        ok = repo.ping(store)
+        ok = store.db.ping()
         problem = None if ok else "no answer"
     except Exception as exc:
         ok, problem = False, type(exc).__name__
-    body = {
-        "status": "ok" if ok else "unavailable",
-        "database": "ok" if ok else f"error: {problem}",
-        "version": version(),
-    }
+    body = Health(
+        status="ok" if ok else "unavailable",
+        database="ok" if ok else f"error: {problem}",
+        version=code_version(),
+    )
     return JSONResponse(
-        body, status_code=200 if ok else 503, headers={"Cache-Control": "no-store"}
+        body.model_dump(), status_code=200 if ok else 503, headers={"Cache-Control": "no-store"}
     )
 
 

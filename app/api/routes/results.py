@@ -1,14 +1,13 @@
 """Results of finished experiments: skill curves, maps, conditional gain; regions.
 
 Every representation is derived once from the stored result, kept in the artifact store under a
-key made of the result digest and the request's options (``repo.put_cached``), and served from
+key made of the result digest and the request's options (:func:`app.store.derived_files.put_cached`), and served from
 there afterwards. The ETag is a hash of the same identity, so ``If-None-Match`` is answered with a
 304 before any file is read.
 """
 
 from __future__ import annotations
 
-import json
 import re
 import threading
 from collections import OrderedDict
@@ -20,10 +19,12 @@ from fastapi import APIRouter, Query, Request, Response
 
 from app.api.caching import RESULT_CACHE, cache_headers, make_etag, not_modified
 from app.api.deps import ReadAccess, StoreDep
-from app.api.routes.experiments import check_region_name
-from app.cube.regions import AGGREGATIONS, MAP_FIELDS, list_regions
+from app.api.schemas import ConditionalTable, RegionsOut, SkillCurve
+from app.cube.regions import list_regions
 from app.errors import NotFoundError, ParameterError
-from app.store import Store, repo
+from app.results.contract import AGGREGATIONS, MAP_FIELDS
+from app.runs.options import RegionName
+from app.store import Store, derived_files, experiment_rows
 
 router = APIRouter(tags=["results"])
 
@@ -51,7 +52,7 @@ def _digest(store: Store, experiment_id: str) -> str:
     key = (id(store), experiment_id)
     found = _digests.get(key)
     if found is None:
-        found = repo.result_digest(store, experiment_id)
+        found = experiment_rows.result_digest(store, experiment_id)
         if len(_digests) > 4096:
             _digests.clear()
         _digests[key] = found
@@ -111,13 +112,13 @@ def _serve(
     hit = _bytes.get(key)
     if hit is not None:
         return Response(hit[0], media_type=hit[1], headers=headers)
-    found = repo.get_cached(store, key)
+    found = derived_files.get_cached(store, key)
     if found is None:
         with _derive_lock:
-            found = repo.get_cached(store, key)
+            found = derived_files.get_cached(store, key)
             if found is None:
                 data = make()
-                path = repo.put_cached(store, key, data, media_type=MEDIA[fmt])
+                path = derived_files.put_cached(store, key, data, media_type=MEDIA[fmt])
                 found = (path, MEDIA[fmt])
     path, media_type = found
     data = Path(path).read_bytes()
@@ -125,16 +126,17 @@ def _serve(
     return Response(data, media_type=media_type, headers=headers)
 
 
-def _json_bytes(payload: Any) -> bytes:
-    return json.dumps(payload, allow_nan=False).encode("utf-8")
-
-
 @router.get(
     "/v1/experiments/{experiment_id}/skill",
     responses={
         200: {
-            "content": {m: {} for m in ("application/json", "text/csv", "image/png")},
+            "content": {
+                "application/json": {"schema": {"$ref": "#/components/schemas/SkillCurve"}},
+                "text/csv": {},
+                "image/png": {},
+            },
             "description": "the skill-by-lead curve (DESIGN section 5 shape for JSON)",
+            "model": SkillCurve,
         },
         304: {"description": "not modified"},
     },
@@ -144,14 +146,13 @@ async def skill(
     request: Request,
     store: StoreDep,
     _: ReadAccess,
-    region: Annotated[str, Query(max_length=200)] = "all",
+    region: Annotated[RegionName, Query()] = "all",
     aggregation: Annotated[str, Query(max_length=50)] = "acc_of_region_mean",
     format: Annotated[Literal["json", "csv", "png"], Query()] = "json",
 ) -> Response:
     """The skill-by-lead curve of a region and aggregation, as JSON, CSV or PNG."""
     from starlette.concurrency import run_in_threadpool
 
-    region = check_region_name(region)
     if aggregation not in AGGREGATIONS:
         raise ParameterError(
             f"unknown aggregation {aggregation!r}; choose one of {', '.join(AGGREGATIONS)}",
@@ -168,9 +169,9 @@ async def skill(
         return fast
 
     def make() -> bytes:
-        curve = repo.load_result(store, experiment_id).curve(region, aggregation)
+        curve = experiment_rows.load_result(store, experiment_id).curve(region, aggregation)
         if format == "json":
-            return _json_bytes(curve)
+            return SkillCurve.model_validate(curve).model_dump_json().encode()
         if format == "csv":
             from app.results.tables import curve_csv
 
@@ -215,7 +216,7 @@ def maps(
     key = f"{digest}:map:{window}:{chosen}.{EXTENSION[format]}"
 
     def make() -> bytes:
-        result = repo.load_result(store, experiment_id)
+        result = experiment_rows.load_result(store, experiment_id)
         if window not in result.window_labels:
             raise NotFoundError(
                 f"unknown lead window {window!r}; choose one of {', '.join(result.window_labels)}",
@@ -236,7 +237,7 @@ def _netcdf_extract(store: Store, maps: Any, *, window: str, field: str | None) 
     """The window (kept as a length-1 ``window`` dim) as CF NetCDF bytes."""
     import shutil
 
-    from app.results.provenance import history_line
+    from app.provenance import history_line
 
     ds = maps.sel(window=[window])
     if field is not None:
@@ -255,21 +256,25 @@ def _netcdf_extract(store: Store, maps: Any, *, window: str, field: str | None) 
         shutil.rmtree(work, ignore_errors=True)
 
 
-@router.get("/v1/experiments/{experiment_id}/conditional")
+@router.get(
+    "/v1/experiments/{experiment_id}/conditional",
+    response_model=ConditionalTable,
+    responses={304: {"description": "not modified"}},
+)
 def conditional(
     experiment_id: str,
     request: Request,
     store: StoreDep,
     _: ReadAccess,
-    region: Annotated[str, Query(max_length=200)] = "all",
+    region: Annotated[RegionName, Query()] = "all",
 ) -> Response:
     """Gain by initial-land-anomaly stratum (dry, middle, wet terciles) and lead window."""
-    region = check_region_name(region)
     digest = _digest(store, experiment_id)
     key = f"{digest}:conditional:{region}.json"
 
     def make() -> bytes:
-        return _json_bytes(repo.load_result(store, experiment_id).conditional(region))
+        table = experiment_rows.load_result(store, experiment_id).conditional(region)
+        return ConditionalTable.model_validate(table).model_dump_json().encode()
 
     name = f"{experiment_id}_conditional_{_safe(region)}.json"
     return _serve(request, store, key=key, fmt="json", filename=name, make=make)
@@ -278,20 +283,20 @@ def conditional(
 _regions_cache: list[dict[str, Any]] | None = None
 
 
-@router.get("/v1/regions")
+@router.get("/v1/regions", response_model=RegionsOut, responses={304: {"description": "not modified"}})
 def regions(request: Request, _: ReadAccess) -> Response:
     """The regions a request may name: ``all`` and the offline reference regions."""
     global _regions_cache
     if _regions_cache is None:
         _regions_cache = list_regions()
-    body = {
-        "regions": _regions_cache,
-        "patterns": {
+    body = RegionsOut(
+        regions=_regions_cache,
+        patterns={
             "box": "box:LAT0,LAT1,LON0,LON1",
             "polygon": "polygon:NAME (GeoJSON given when the experiment was created)",
         },
-    }
-    data = _json_bytes(body)
+    )
+    data = body.model_dump_json().encode()
     headers = cache_headers(make_etag("regions", data.decode()), "private, max-age=3600")
     cached = not_modified(request, headers)
     if cached is not None:

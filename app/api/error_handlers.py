@@ -9,6 +9,7 @@ to the same body by :func:`install_error_handlers`, the single place where error
 from __future__ import annotations
 
 import logging
+import math
 from typing import Any
 
 from fastapi import FastAPI, Request
@@ -17,6 +18,7 @@ from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from app.errors import LandliftError
+from app.runs.options import describe_validation_errors
 
 log = logging.getLogger("landlift.api")
 
@@ -80,8 +82,12 @@ def _jsonable(value: Any) -> Any:
         return {str(k): _jsonable(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
         return [_jsonable(v) for v in value]
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)  # NaN and infinities are not JSON
     if value is None or isinstance(value, str | int | float | bool):
         return value
+    if isinstance(value, bytes):
+        return value[:200].decode("utf-8", "replace")
     return str(value)
 
 
@@ -101,17 +107,14 @@ def _validation_detail(exc: RequestValidationError) -> tuple[str, str, dict[str,
         )
     if malformed:
         return "malformed_json", "the request body is not valid JSON", {"errors": errors}
-    first = errors[0] if errors else {"loc": [], "message": "invalid request"}
-    where = ".".join(p for p in first["loc"] if p not in ("body", "query", "path"))
-    message = f"{where}: {first['message']}" if where else str(first["message"])
-    return "invalid_request", message, {"errors": errors}
+    return "invalid_request", describe_validation_errors(exc.errors()), {"errors": errors}
 
 
 def to_response(request: Request, exc: Exception) -> JSONResponse:
     """THE mapping from an exception to the DESIGN error body and its HTTP status."""
     if isinstance(exc, LandliftError):
         status = int(getattr(exc, "http_status", 400))
-        return error_response(status, exc.code, exc.message, _jsonable(exc.detail))
+        return error_response(status, exc.code, exc.message, _jsonable(exc.detail), exc.headers)
     if isinstance(exc, ApiError):
         return error_response(exc.status, exc.code, exc.message, _jsonable(exc.detail),
                               exc.headers)

@@ -1,11 +1,12 @@
-"""Validate an uploaded file in a separate *spawned* process with a memory and a time limit.
+"""Validate a dataset file in a separate *spawned* process with a memory and a time limit.
 
 Crafted or truncated files can crash the C libraries (HDF5, netCDF-C) that read them. The check
-therefore runs :func:`app.cube.datasets.describe_dataset` in a fresh interpreter started with the
+therefore runs :func:`app.cube.sources.describe_dataset` in a fresh interpreter started with the
 ``spawn`` method (no copy of the server's threads, sockets or database connections), whose address
 space is capped with ``resource.setrlimit(RLIMIT_AS)`` and which is killed when it outlives the
-wall-clock timeout. Whatever happens to the child, the server only sees a
-:class:`ValidationFailure` or the description.
+wall-clock timeout. Whatever happens to the child, the caller only sees the description or an
+:class:`app.errors.InputError` whose code says what happened (``invalid_input``,
+``validation_crashed``, ``validation_timeout``, ``validation_memory``).
 
 Keep this module light at import: the child imports it to find its target.
 """
@@ -18,32 +19,19 @@ import multiprocessing
 import os
 import signal
 import time
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-#: Test hook, read by the child only: ``abort`` makes it call ``os.abort()`` (SIGABRT),
-#: ``segfault`` makes it read address 0 (SIGSEGV), ``sleep`` makes it hang, ``allocate`` makes it
-#: ask for more memory than its limit. The end-to-end tests use it to prove that a dying or
-#: runaway validator never takes the server down and leaves nothing behind.
-FAULT_ENV = "LANDLIFT_TEST_VALIDATION_FAULT"
+from app.errors import InputError
+
+#: Test hook (setting ``validation_fault``), acted on by the child only: ``abort`` makes it call
+#: ``os.abort()`` (SIGABRT), ``segfault`` makes it read address 0 (SIGSEGV), ``sleep`` makes it
+#: hang, ``allocate`` makes it ask for more memory than its limit. The end-to-end tests use it to
+#: prove that a dying or runaway validator never takes the server down and leaves nothing behind.
+FAULTS: tuple[str, ...] = ("", "abort", "segfault", "sleep", "allocate")
 
 
-@dataclass
-class ValidationFailure(Exception):
-    """The validation child rejected the file, crashed, ran out of memory or time."""
-
-    status: int
-    code: str
-    message: str
-    detail: dict[str, Any]
-
-    def __str__(self) -> str:
-        return self.message
-
-
-def _inject_fault(memory_bytes: int | None) -> None:
-    fault = os.environ.get(FAULT_ENV, "")
+def _inject_fault(fault: str, memory_bytes: int | None) -> None:
     if fault == "abort":
         os.abort()
     elif fault == "segfault":
@@ -57,7 +45,7 @@ def _inject_fault(memory_bytes: int | None) -> None:
 
 
 def _child(
-    conn: Any, path: str, role: str, variable: str | None, memory_bytes: int | None
+    conn: Any, path: str, role: str, variable: str | None, memory_bytes: int | None, fault: str
 ) -> None:
     """Entry point of the spawned process: import, set the limit, describe, answer once.
 
@@ -67,7 +55,7 @@ def _child(
     try:
         for name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
             os.environ.setdefault(name, "1")  # one thread per numeric library
-        from app.cube.datasets import describe_dataset
+        from app.cube.sources import describe_dataset
         from app.errors import LandliftError
 
         for reader in ("netCDF4", "h5netcdf", "zarr"):  # loaded lazily by xarray otherwise
@@ -78,7 +66,7 @@ def _child(
 
             resource.setrlimit(resource.RLIMIT_AS, (memory_bytes, memory_bytes))
         try:
-            _inject_fault(memory_bytes)
+            _inject_fault(fault, memory_bytes)
             description = describe_dataset(path, role=role, variable=variable)
         except LandliftError as exc:
             conn.send(("invalid", exc.code, exc.message, dict(exc.detail)))
@@ -112,8 +100,9 @@ def validate_file(
     timeout: float,
     memory_bytes: int | None,
     display_name: str | None = None,
+    fault: str = "",
 ) -> dict[str, Any]:
-    """Describe ``path`` in a spawned child; return the description or raise ValidationFailure.
+    """Describe ``path`` in a spawned child; return the description or raise InputError.
 
     Blocking: call it from a worker thread in async code.
     """
@@ -122,7 +111,7 @@ def validate_file(
     parent_conn, child_conn = ctx.Pipe(duplex=False)
     proc = ctx.Process(
         target=_child,
-        args=(child_conn, str(path), role, variable, memory_bytes),
+        args=(child_conn, str(path), role, variable, memory_bytes, fault),
         name="landlift-validate",
         daemon=True,
     )
@@ -139,12 +128,10 @@ def validate_file(
         else:
             proc.kill()
             proc.join(5)
-            raise ValidationFailure(
-                422,
-                "validation_timeout",
-                f"file {shown}: validation did not finish within {timeout:g} s "
+            raise InputError(
+                f"validation did not finish within {timeout:g} s "
                 "(setting validation_timeout_seconds)",
-                {"file": shown, "timeout_seconds": timeout},
+                file=shown, code="validation_timeout", timeout_seconds=timeout,
             )
         proc.join(10)
         if proc.is_alive():
@@ -159,12 +146,10 @@ def validate_file(
     if message is None:
         code = proc.exitcode
         how = _signal_name(code) if code is not None and code < 0 else f"exit status {code}"
-        raise ValidationFailure(
-            422,
-            "validation_crashed",
-            f"file {shown}: the validation process crashed ({how}); the file is damaged or "
+        raise InputError(
+            f"the validation process crashed ({how}); the file is damaged or "
             "not a readable NetCDF/HDF5 dataset",
-            {"file": shown, "exitcode": code, "seconds": round(elapsed, 3)},
+            file=shown, code="validation_crashed", exitcode=code, seconds=round(elapsed, 3),
         )
     kind, code_name, text, payload = message
 
@@ -174,19 +159,18 @@ def validate_file(
     if kind == "ok":
         return dict(payload)
     if kind == "invalid":
-        detail = {"file": shown, **{k: v for k, v in payload.items() if k != "file"}}
-        raise ValidationFailure(422, code_name or "invalid_input", named(text), detail)
+        detail = {k: named(v) if isinstance(v, str) else v for k, v in payload.items()}
+        detail["file"] = shown
+        error = InputError(named(text), code=code_name or "invalid_input")
+        error.detail = detail
+        raise error
     if kind == "memory":
-        raise ValidationFailure(
-            422,
-            "validation_memory",
-            f"file {shown}: validation needed more than {memory_bytes} bytes of memory "
+        raise InputError(
+            f"validation needed more than {memory_bytes} bytes of memory "
             "(setting validation_memory_bytes)",
-            {"file": shown, "memory_bytes": memory_bytes},
+            file=shown, code="validation_memory", memory_bytes=memory_bytes,
         )
-    raise ValidationFailure(
-        422,
-        "invalid_input",
-        f"file {shown}: could not be read as a NetCDF/HDF5 dataset ({code_name}: {named(text)})",
-        {"file": shown, "reader_error": code_name},
+    raise InputError(
+        f"could not be read as a NetCDF/HDF5 dataset ({code_name}: {named(text)})",
+        file=shown, reader_error=code_name,
     )

@@ -1,9 +1,8 @@
 """Service commands of ``landlift``: ``serve``, ``worker``, ``token`` and ``db``.
 
-``app.cli`` calls :func:`add_service_commands` with its sub-parsers; each command sets
+:func:`add_commands` registers them on the sub-parsers of :mod:`app.cli.main`; each command sets
 ``func(args) -> int``. Settings come from ``LANDLIFT_*`` environment variables
-(:class:`app.settings.Settings`); ``--data-dir`` and ``--database-url`` override them. ``python -m
-app.service_cli ...`` runs the same commands without the rest of the CLI.
+(:class:`app.settings.Settings`); ``--data-dir`` and ``--database-url`` override them.
 
 Schema policy: ``landlift db upgrade`` migrates any database. ``serve``, ``worker`` and ``token``
 upgrade an SQLite database by themselves (the embedded default has no separate operator); on
@@ -17,8 +16,9 @@ import argparse
 import signal
 import sys
 import threading
-from collections.abc import Sequence
 from typing import Any
+
+from app.errors import LandliftError
 
 DEFAULT_HOST = "127.0.0.1"
 DEFAULT_PORT = 8000
@@ -44,9 +44,10 @@ def _ensure_schema(settings: Any) -> None:
         return
     current, head = current_revision(settings.url), head_revision()
     if current != head:
-        raise SystemExit(
-            f"landlift: error: database schema is at revision {current!r}, not {head!r}; "
-            "run `landlift db upgrade` first"
+        raise LandliftError(
+            f"database schema is at revision {current!r}, not {head!r}; "
+            "run `landlift db upgrade` first",
+            code="schema_out_of_date",
         )
 
 
@@ -101,13 +102,13 @@ def cmd_worker(args: argparse.Namespace) -> int:
 
 
 def cmd_token_create(args: argparse.Namespace) -> int:
-    from app.store import Store, repo
+    from app.store import Store, token_rows
 
     settings = _settings(args)
     _ensure_schema(settings)
     store = Store.open(settings)
     try:
-        token, info = repo.create_token(store, name=args.name, scope=args.scope)
+        token, info = token_rows.create_token(store, name=args.name, scope=args.scope)
     finally:
         store.close()
     print(token)
@@ -120,13 +121,13 @@ def cmd_token_create(args: argparse.Namespace) -> int:
 
 
 def cmd_token_list(args: argparse.Namespace) -> int:
-    from app.store import Store, repo
+    from app.store import Store, token_rows
 
     settings = _settings(args)
     _ensure_schema(settings)
     store = Store.open(settings)
     try:
-        rows = repo.list_tokens(store)
+        rows = token_rows.list_tokens(store)
     finally:
         store.close()
     for row in rows:
@@ -136,13 +137,13 @@ def cmd_token_list(args: argparse.Namespace) -> int:
 
 
 def cmd_token_revoke(args: argparse.Namespace) -> int:
-    from app.store import Store, repo
+    from app.store import Store, token_rows
 
     settings = _settings(args)
     _ensure_schema(settings)
     store = Store.open(settings)
     try:
-        info = repo.revoke_token(store, args.token_id)
+        info = token_rows.revoke_token(store, args.token_id)
     finally:
         store.close()
     print(f"landlift: token {info['id']} revoked", file=sys.stderr)
@@ -184,7 +185,7 @@ def _port(text: str) -> int:
     return value
 
 
-def add_service_commands(subparsers: Any) -> None:
+def add_commands(subparsers: Any) -> None:
     """Register ``serve``, ``worker``, ``token create|list|revoke`` and ``db upgrade|current``."""
     serve = subparsers.add_parser(
         "serve", help="run the HTTP API with an in-process worker (the embedded default)"
@@ -234,16 +235,3 @@ def add_service_commands(subparsers: Any) -> None:
     current = db_sub.add_parser("current", help="show the schema revision (exit 1 if behind)")
     _add_store_options(current)
     current.set_defaults(func=cmd_db_current)
-
-
-def main(argv: Sequence[str] | None = None) -> int:
-    """``python -m app.service_cli``: the service commands on their own."""
-    from app.cli import dispatch
-
-    parser = argparse.ArgumentParser(prog="landlift", description="landlift service commands")
-    add_service_commands(parser.add_subparsers(dest="command", required=True))
-    return dispatch(parser.parse_args(argv))
-
-
-if __name__ == "__main__":
-    raise SystemExit(main())

@@ -11,24 +11,26 @@ import os
 import re
 from pathlib import Path, PurePosixPath
 
-from app.api.errors import ApiError
+from app.errors import NotFoundError, RefusedError
 
 _SCHEME = re.compile(r"^[A-Za-z][A-Za-z0-9+.\-]*://")
 
 
-def _refuse(uri: str, reason: str, roots: list[Path], status: int = 422) -> ApiError:
-    return ApiError(
-        status,
-        "path_not_allowed",
+def _refuse(uri: str, reason: str, roots: list[Path], status: int = 422) -> RefusedError:
+    return RefusedError(
         f"uri {uri!r} is refused: {reason}; only files and Zarr stores under the data roots "
         f"({', '.join(str(r) for r in roots) or 'none configured: set LANDLIFT_DATA_ROOTS'}) "
         "can be registered",
-        detail={"uri": uri, "reason": reason, "data_roots": [str(r) for r in roots]},
+        code="path_not_allowed",
+        http_status=status,
+        uri=uri,
+        reason=reason,
+        data_roots=[str(r) for r in roots],
     )
 
 
 def resolve_register_path(uri: str, roots: list[Path]) -> Path:
-    """The resolved path for ``uri``, or :class:`ApiError` explaining the refusal."""
+    """The resolved path for ``uri``, or :class:`RefusedError` explaining the refusal."""
     if not roots:
         raise _refuse(uri, "no data roots are configured", roots, status=403)
     text = uri.strip()
@@ -52,9 +54,7 @@ def resolve_register_path(uri: str, roots: list[Path]) -> Path:
     try:
         real = candidate.resolve(strict=True)
     except FileNotFoundError:
-        raise ApiError(
-            404, "not_found", f"uri {uri!r}: no such file or Zarr store", detail={"uri": uri}
-        ) from None
+        raise NotFoundError(f"uri {uri!r}: no such file or Zarr store", uri=uri) from None
     except (OSError, RuntimeError) as exc:
         raise _refuse(uri, f"the path cannot be resolved ({exc})", roots) from None
     if not any(real.is_relative_to(r) for r in resolved_roots):
