@@ -52,7 +52,10 @@ What a linear system gives anyway (:func:`linear_expectation`)
     this is ``m2 / (m2 + 1/3)``: 0.815 in the dry and wet terciles (m2 = 1.470), 0.153 in the
     middle one (m2 = 0.060), 0.880 for |z| in its top third (m2 = 2.451).
 
-    The **test of state dependence** is on ``D = gain - expected_gain`` per stratum. Under a
+    The **test of state dependence** is on ``D = gain - expected_gain`` per stratum
+    (``state_dependence``; ``state_dependence_realistic`` = r1 - expected r1 is the same test on
+    the realistic run alone: the scrambled run's land state is unrelated to z, so its part of D
+    is sampling noise only, and leaving it out gains power where that noise dominates). Under a
     state-independent linear system D is zero up to sampling error. Its interval and p-value come
     from the same year-block resamples as everything else, with the whole-sample fit, the
     stratum's m1 and m2 and its observed gain all recomputed inside each resample (one product of
@@ -362,9 +365,9 @@ def _clip_unit(r: FloatArray) -> FloatArray:
 
 
 def _scores(group_sums: FloatArray, *, group_axis: int) -> list[dict[str, FloatArray]]:
-    """Every quantity of :data:`QUANTITIES` for each stratum (groups 1, 2, ...), plus the two
-    :class:`Msess` under ``"_msess"``. ``group_sums`` has the groups (group 0 = all samples) on
-    ``group_axis`` and the statistics right after it; other axes pass through."""
+    """Every quantity of :data:`QUANTITIES` for each stratum (groups 1, 2, ...). ``group_sums``
+    has the groups (group 0 = all samples) on ``group_axis`` and the statistics right after it;
+    other axes pass through."""
     whole = np.take(group_sums, 0, axis=group_axis)
     out = []
     for g in range(1, group_sums.shape[group_axis]):
