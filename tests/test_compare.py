@@ -75,20 +75,21 @@ def test_different_observations_are_refused(results: dict, tmp_path: Path) -> No
 
 
 def test_sign_test_counts_and_bound() -> None:
-    a = np.array([1.0, 2.0, 3.0, 1.0, np.nan, 2.0])
-    b = np.array([0.5, 2.5, 1.0, 1.0, 1.0, 1.0])
+    # one start per year: (n_years, n_per_year) = (6, 1); the NaN year is missing, not a tie
+    a = np.array([1.0, 2.0, 3.0, 1.0, np.nan, 2.0]).reshape(6, 1)
+    b = np.array([0.5, 2.5, 1.0, 1.0, 1.0, 1.0]).reshape(6, 1)
     st = random_walk_sign_test(a, b, confidence=0.95)
-    assert (st.candidate_better, st.baseline_better, st.ties) == (3, 1, 1)
+    assert (st.candidate_better, st.baseline_better, st.ties, st.missing_years) == (3, 1, 1, 1)
     assert list(st.walk) == [1, 0, 1, 2]
-    # bound of the random walk: z_{0.975} sqrt(n) (DelSole and Tippett 2016, normal approximation)
-    assert st.bound == pytest.approx(sps.norm.ppf(0.975) * 2.0)
+    # exact binomial bound: no walk of 4 steps reaches p < 0.05 (scipy.stats.binomtest(4, 4) = 0.125)
+    assert np.isinf(st.bound) and sps.binomtest(4, 4, 0.5).pvalue > 0.05
     assert st.p_value == pytest.approx(sps.binomtest(3, 4, 0.5).pvalue)
     assert not st.significant
 
 
 def test_sign_test_detects_a_consistently_better_forecast() -> None:
     rng = np.random.default_rng(3)
-    err_a = np.abs(rng.standard_normal(200))
+    err_a = np.abs(rng.standard_normal(200)).reshape(40, 5)  # 40 years of 5 starts
     err_b = err_a * 0.7
     st = random_walk_sign_test(err_a, err_b)
-    assert st.candidate_better == 200 and st.significant and st.p_value < 1e-10
+    assert st.candidate_better == 40 and st.significant and st.p_value < 1e-10
