@@ -32,7 +32,7 @@ def bench() -> ModuleType:
 @pytest.fixture(scope="module")
 def tiny(bench: ModuleType) -> dict:
     return bench.run(
-        years=5,
+        years=8,
         starts=3,
         windows=2,
         cells=40,
@@ -53,7 +53,7 @@ def test_figures_have_every_field(tiny: dict) -> None:
     assert {k: tiny["naive_reduced_case"][k] for k in ("cells", "resamples")} == {"cells": 6, "resamples": 4}
     assert tiny["unblocked_columns"] == 16
     assert tiny["case"] == {
-        "years": 5,
+        "years": 8,
         "starts": 3,
         "windows": 2,
         "cells": 40,
@@ -61,7 +61,7 @@ def test_figures_have_every_field(tiny: dict) -> None:
         "columns": 80,
     }
     # memory: the engine's peak holds at least the three input arrays; never more than the end
-    assert tiny["input_mb"] == pytest.approx(3 * 5 * 3 * 2 * 40 * 8 / 2**20, abs=0.05)
+    assert tiny["input_mb"] == pytest.approx(3 * 8 * 3 * 2 * 40 * 8 / 2**20, abs=0.05)
     assert tiny["input_mb"] <= tiny["peak_rss_mb"] <= tiny["peak_rss_mb_all_stages"]
     assert tiny["finite_gain_fraction"] == 1.0
     assert len(tiny["region_gain"]) == 2
@@ -99,9 +99,9 @@ def test_bad_option_is_refused_with_its_value(bench: ModuleType) -> None:
 def test_synthetic_case_scores_like_scipy(bench: ModuleType) -> None:
     """The benchmark's cube is what the engine scores: its point ACC of a cell equals
     scipy.stats.pearsonr over that cell's years x starts samples (reference: scipy)."""
-    cube, weights = bench.build_case(years=6, starts=4, windows=2, cells=10, seed=5)
+    cube, weights = bench.build_case(years=8, starts=4, windows=2, cells=10, seed=5)
     assert weights.shape == (1, 10) and (weights > 0).all()
-    boot = bench.make_bootstrap(6, resamples=20, seed=5)
+    boot = bench.make_bootstrap(8, resamples=20, seed=5)
     from app.cube.assess import assess_cells
 
     res = assess_cells(cube, boot, weights)
@@ -117,8 +117,8 @@ def test_pool_run_gives_the_serial_results(bench: ModuleType) -> None:
     """The thread-pool timing stage computes what assess_cells computes (same resampled years)."""
     from app.cube.assess import assess_cells
 
-    cube, weights = bench.build_case(years=6, starts=3, windows=2, cells=50, seed=2)
-    boot = bench.make_bootstrap(6, resamples=25, seed=2)
+    cube, weights = bench.build_case(years=8, starts=3, windows=2, cells=50, seed=2)
+    boot = bench.make_bootstrap(8, resamples=25, seed=2)
     serial = assess_cells(cube, boot, weights, block_cells=16)
     pooled = bench.assess_cells_on_pool(cube, boot, weights, threads=2, block_cells=16)
     for name in ("acc_realistic", "acc_scrambled", "gain_low", "gain_high", "p_value"):

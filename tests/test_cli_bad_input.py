@@ -57,7 +57,7 @@ CASES = [
         {"drop_dim": {"realistic": "realization"}}),
     Bad("missing-lat-dim", InputError, ("observations.nc", "no lat dimension"),
         {"drop_dim": {"observations": "lat"}}),
-    Bad("fewer-than-3-years", InputError, ("realistic.nc", "'tas'", "2 year(s)", "at least 3"),
+    Bad("fewer-than-7-years", InputError, ("realistic.nc", "'tas'", "2 year(s)", "at least 7"),
         {"n_years": 2}),
     Bad("all-nan-observations", InputError, ("observations.nc", "'tas'", "all NaN"),
         {"all_nan": ("observations",)}),

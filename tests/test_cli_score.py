@@ -32,8 +32,9 @@ MAP_FIELDS = ("acc_realistic", "acc_scrambled", "gain", "gain_low", "gain_high",
 CURVE_KEYS = {"experiment", "variable", "units", "region", "aggregation", "confidence", "resamples", "seed", "windows"}
 WINDOW_KEYS = {"label", "first_day", "last_day", "n_years", "n_samples", "acc_realistic", "acc_scrambled", "gain"}
 #: keys present beyond DESIGN section 5 (reported to the lead; DESIGN 3.7 asks for the fraction)
-EXTRA_CURVE_KEYS = {"interval_method"}
-EXTRA_WINDOW_KEYS = {"fraction_significant_cells"}
+#: fields added to the DESIGN section 5 shape (fields are only ever added)
+EXTRA_CURVE_KEYS = {"interval_method", "scramble", "min_cell_samples"}
+EXTRA_WINDOW_KEYS = {"fraction_significant_cells", "gain_corrected", "acc_scrambled_corrected", "dropped_for_coverage"}
 
 
 def _landlift(*args: str, cwd: Path = REPO) -> subprocess.CompletedProcess[str]:

@@ -106,6 +106,15 @@ def _assert_same_results(a: Path, b: Path, *, atol: float = TOL) -> int:
                 x, y = da[v].values, db[v].values
                 assert x.shape == y.shape
                 assert np.isfinite(x).any(), f"{name}:{v} holds no finite value"
+                if atol != TOL and v in ("p_value", "significant"):
+                    # inputs that differ by rounding can move one resample of a gain that is
+                    # about 0 across 0: its tail count, so its p-value, moves by one draw
+                    differ = ~np.isclose(x, y, rtol=0.0, atol=atol, equal_nan=True)
+                    near_zero = np.abs(da["gain"].values) < 0.01
+                    assert (differ <= near_zero).all(), f"{name}:{v} differs where the gain is not ~0"
+                    assert differ.mean() <= 0.01, f"{name}:{v} differs in {differ.mean():.1%} of cells"
+                    checked += x.size
+                    continue
                 np.testing.assert_allclose(x, y, rtol=0.0, atol=atol, equal_nan=True, err_msg=f"{name}:{v}")
                 checked += x.size
     return checked

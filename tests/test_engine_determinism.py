@@ -139,14 +139,18 @@ def _resampled_acc(x: np.ndarray, y: np.ndarray, ok: np.ndarray, counts: np.ndar
 def test_interval_at_the_exact_tail_boundary(make_cf_case: Callable[..., CasePaths]) -> None:
     """Float64 view of the boundary case: exactly 10 of 400 gain draws <= 0, percentile 95 %.
 
-    The inverted-CDF 2.5 % quantile of 400 draws is the 10th order statistic (ceil(0.025 * 400)),
-    which is <= 0 here, and p = 2 * 10 / 400 = 0.05: the interval includes 0, p is not below 0.05.
-    The draws are recomputed here with numpy from the run's anomaly cube and count matrix.
+    The p-value is (r + 1)/(B + 1) through the percentile map (Phipson and Smyth 2010):
+    p = 2 * 11 / 401 = 0.0549 with r = 10, not below 0.05; the bounds are the k-th order
+    statistics with k = #{r : 2 (r + 1)/401 < 0.05} = 10, so the lower bound is the 10th smallest
+    draw, which is <= 0: the interval includes 0, as the p-value says. The draws are recomputed
+    here with numpy from the run's anomaly cube and count matrix.
     """
     from app.runs.scoring import run_engine
 
     case = make_cf_case(lat=(40.0, 44.0, 48.0, 52.0), lon=(10.0, 12.0, 14.0, 16.0, 18.0), nan_obs=0.05)
-    out = run_engine(*case.engine_args(), options=run_options(resamples=400, interval="percentile", seed=3))
+    # every cell scored as before the coverage and minimum-sample rules (this case is about them not)
+    out = run_engine(*case.engine_args(), options=run_options(
+        resamples=400, interval="percentile", seed=3, min_coverage=0.01, min_cell_samples=4))
     c = out.cube
     boundary = []
     for w in range(c.n_windows):
@@ -159,7 +163,7 @@ def test_interval_at_the_exact_tail_boundary(make_cf_case: Callable[..., CasePat
     assert boundary, "the synthetic case no longer has a boundary cell; pick another seed"
     for w, k, tenth in boundary:
         assert tenth <= 0.0
-        assert out.cells.p_value[w, k] == pytest.approx(0.05, abs=1e-12)
+        assert out.cells.p_value[w, k] == pytest.approx(2 * 11 / 401, abs=1e-12)
         low, high = out.cells.gain_low[w, k], out.cells.gain_high[w, k]
         assert low == pytest.approx(tenth, abs=1e-9), (w, k, low, tenth)
         assert low <= 0.0 <= high

@@ -19,6 +19,9 @@ from scipy.stats import pearsonr
 
 from app.runs.scoring import run_engine
 
+#: options that score every window with a day observed and every cell with 4 samples or more
+ALL_DATA = {"min_coverage": 0.01, "min_cell_samples": 4}
+
 
 def _reference_acc(case: CasePaths, name: str = "realistic", **kw: object) -> np.ndarray:
     a = paired(reference_anomalies(case, **kw))
@@ -47,7 +50,9 @@ def test_scattered_nans_give_finite_acc_matching_the_reference(
     make_cf_case: Callable[..., CasePaths], defects: dict
 ) -> None:
     case = make_cf_case(**defects)
-    out = run_engine(*case.engine_args(), options=run_options(resamples=100))
+    # the reference keeps every window with a day observed and every cell with 3 samples: so do
+    # the options here (the coverage and minimum-sample rules have tests of their own)
+    out = run_engine(*case.engine_args(), options=run_options(resamples=100, **ALL_DATA))
     assert np.isfinite(out.cells.acc_realistic).all() and np.isfinite(out.cells.acc_scrambled).all()
     assert np.isfinite(out.cells.p_value).all()
     np.testing.assert_allclose(out.cells.acc_realistic, _reference_acc(case, "realistic"), atol=1e-10)
@@ -58,11 +63,12 @@ def test_scattered_nans_give_finite_acc_matching_the_reference(
 
 
 def test_a_start_with_every_member_missing_drops_only_that_sample(make_cf_case: Callable[..., CasePaths]) -> None:
-    case = make_cf_case(missing_members=0.6, members=2)
-    out = run_engine(*case.engine_args(), options=run_options(resamples=50))
+    # 14 years, so that every cell keeps the 7 years a cell needs after the lost starts
+    case = make_cf_case(missing_members=0.6, members=2, n_years=14)
+    out = run_engine(*case.engine_args(), options=run_options(resamples=50, **ALL_DATA))
     ref = paired(reference_anomalies(case))
     n_ref = np.isfinite(ref["observed"]).sum(("year", "slot")).values.reshape(len(out.windows), -1)
-    assert (n_ref < 16).any(), "some starts lose every member in this case"
+    assert (n_ref < 28).any(), "some starts lose every member in this case"
     np.testing.assert_array_equal(out.cells.n_samples, n_ref)
     np.testing.assert_allclose(out.cells.acc_realistic, _reference_acc(case), atol=1e-10)
 

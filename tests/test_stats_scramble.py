@@ -36,10 +36,10 @@ from dataclasses import dataclass
 import numpy as np
 import pytest
 
-from app.cube.assess import strata_masks
 from app.errors import ParameterError
 from app.stats.anomalies import anomalies, standardized_anomalies, weighted_sums
 from app.stats.bootstrap import resampled_correlations
+from app.stats.conditional import strata_masks
 from app.stats.intervals import bootstrap_interval
 from app.stats.resample import year_block_counts
 from app.stats.scramble import (

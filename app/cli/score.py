@@ -17,6 +17,7 @@ from app.runs.options import RunOptions, validated, window_from_text
 from app.settings import Settings
 from app.sizes import MIN_MEMORY_BUDGET, parse_size
 from app.stats.intervals import INTERVAL_METHODS
+from app.stats.scramble import SCRAMBLE_DESIGNS
 
 
 def progress_bar(enabled: bool) -> Any:
@@ -58,6 +59,9 @@ def options_from_flags(args: argparse.Namespace) -> RunOptions:
         "fdr_alpha": args.fdr_alpha,
         "equalize_members": args.equalize_members,
         "leave_one_out": not args.no_leave_one_out,
+        "scramble": args.scramble,
+        "min_cell_samples": args.min_cell_samples,
+        "min_coverage": args.min_coverage,
     }
     if args.variable is not None:
         data["variable"] = args.variable
@@ -124,6 +128,13 @@ def add_command(sub: Any) -> None:
     sc.add_argument("--interval", choices=INTERVAL_METHODS, default=defaults.interval, help="bootstrap interval method")
     sc.add_argument("--fdr-alpha", type=float, default=RunOptions().fdr_alpha, help="Benjamini-Hochberg false discovery rate for map significance")
     sc.add_argument("--equalize-members", action="store_true", help="subsample both experiments to the smaller ensemble")
+    sc.add_argument("--scramble", choices=SCRAMBLE_DESIGNS, default=RunOptions().scramble,
+                    help="how the scrambled land states were drawn: other_years (the gain is also "
+                    "reported corrected for the bias this causes) or independent")
+    sc.add_argument("--min-cell-samples", type=int, default=RunOptions().min_cell_samples,
+                    help="fewest (year, start) samples a cell needs to be scored")
+    sc.add_argument("--min-coverage", type=float, default=RunOptions().min_coverage,
+                    help="share of a window's days that must be observed for it to count")
     sc.add_argument("--no-leave-one-out", action="store_true", help="climatologies over all years, the verified one included")
     sc.add_argument("--scheduler", help="dask.distributed scheduler address (default $LANDLIFT_DASK_SCHEDULER)")
     sc.add_argument("--memory-budget", help="working-set budget such as 512MiB or 2GiB (default $LANDLIFT_MEMORY_BUDGET or 1GiB)")

@@ -4,6 +4,13 @@ The cube holds ensemble-mean and observed anomalies shaped ``(n_years, n_slots, 
 n_cells)`` (see :mod:`app.cube.inputs`). Everything here calls the numpy kernels of
 :mod:`app.stats` on blocks of cells, with one resample-count matrix shared by every cell, region
 and stratum of a run, so that all intervals come from the same resampled years.
+
+Beside every raw scrambled ACC and gain sits the one corrected for the scrambled control's
+design (:mod:`app.stats.scramble`): with land states from other years of the period the raw
+gain is ``n/(n-1)`` times the true one; under ``"independent"`` the corrected values are the raw
+ones. A cell is scored only with at least :data:`MIN_CELL_YEARS` years and ``min_cell_samples``
+samples; region means of cell ACCs weight cells by their samples (Fisher-z inverse variance)
+and read their intervals centred on the point in z space.
 """
 
 from __future__ import annotations
@@ -17,12 +24,20 @@ from numpy.typing import NDArray
 
 from app.stats.anomalies import weighted_sums
 from app.stats.bootstrap import resampled_correlations
+from app.stats.conditional import StratumEstimate, conditional_gain
 from app.stats.fdr import benjamini_hochberg
+from app.stats.fisher import MIN_CELL_SAMPLES, fisher_z, weighted_z_sums
 from app.stats.intervals import Interval, IntervalMethod, bootstrap_interval
+from app.stats.resample import MIN_YEAR_BLOCKS
+from app.stats.scramble import DEFAULT_SCRAMBLE, corrected_scrambled, gain_factor
 from app.stats.sums import correlations_from_sums, total_sums, yearly_sums
 
 FloatArray = NDArray[np.float64]
-Z_CLIP = 1.0 - 1e-12
+
+#: a cell (and a regional series) needs this many years (see app.stats.resample.MIN_YEAR_BLOCKS)
+MIN_CELL_YEARS = MIN_YEAR_BLOCKS
+#: how region means of cell ACCs read their intervals (centred on the point in z space)
+REGION_MEAN_METHOD: IntervalMethod = "centred"
 
 
 @dataclass
@@ -49,25 +64,32 @@ class Cube:
 
 @dataclass(frozen=True)
 class Bootstrap:
-    """The resampling of a run: counts ``(B, n_years)`` and how intervals are read."""
+    """The resampling of a run: counts ``(B, n_years)``, how intervals are read, the design of
+    the scrambled control and the smallest cell a region mean admits."""
 
     counts: FloatArray
     confidence: float
     method: IntervalMethod
+    scramble: str = DEFAULT_SCRAMBLE
+    min_cell_samples: int = MIN_CELL_SAMPLES
 
     @property
     def resamples(self) -> int:
         return int(self.counts.shape[0])
 
-    def interval(self, draws: FloatArray) -> Interval:
+    def interval(
+        self, draws: FloatArray, point: FloatArray, *, method: IntervalMethod | None = None
+    ) -> Interval:
         return bootstrap_interval(
-            draws, confidence=self.confidence, n_blocks=self.counts.shape[1], method=self.method
+            draws, point=point, confidence=self.confidence, n_blocks=self.counts.shape[1],
+            method=method or self.method,
         )
 
 
 @dataclass
 class Estimate:
-    """Point values and intervals of both ACCs and the gain, per column (window, cell, ...)."""
+    """Point values and intervals of both ACCs and the gain, raw and corrected for the design of
+    the scrambled control, per column (window, cell, ...)."""
 
     acc_realistic: FloatArray
     acc_scrambled: FloatArray
@@ -76,33 +98,72 @@ class Estimate:
     gain: Interval
     n_samples: FloatArray
     n_years: FloatArray
+    acc_scrambled_corrected: FloatArray
+    scrambled_corrected: Interval
+    gain_corrected: Interval
+    interval_method: str
 
     @property
     def gain_value(self) -> FloatArray:
         return self.acc_realistic - self.acc_scrambled
 
+    @property
+    def gain_corrected_value(self) -> FloatArray:
+        return self.acc_realistic - self.acc_scrambled_corrected
+
+
+def _enough(n_samples: FloatArray, n_years: FloatArray, boot: Bootstrap) -> NDArray[np.bool_]:
+    return (n_samples >= boot.min_cell_samples) & (n_years >= MIN_CELL_YEARS)
+
 
 def estimate_series(x1: FloatArray, x2: FloatArray, y: FloatArray, boot: Bootstrap) -> Estimate:
-    """ACCs and gain of series shaped ``(Y, S, *columns)``."""
+    """ACCs and gain of series shaped ``(Y, S, *columns)`` (e.g. regional means per window)."""
     yearly = yearly_sums(x1, x2, y)  # (Y, 9, *columns)
     cols = yearly.shape[2:]
     flat = yearly.reshape(yearly.shape[0], yearly.shape[1], -1)
-    r1, r2 = correlations_from_sums(total_sums(flat))
+    totals = total_sums(flat)
+    n, ny = totals[0], (flat[:, 0] > 0).sum(axis=0).astype(np.float64)
+    r1, r2 = correlations_from_sums(totals)
+    ok = _enough(n, ny, boot)
+    r1, r2 = np.where(ok, r1, np.nan), np.where(ok, r2, np.nan)
     d1, d2 = resampled_correlations(flat, boot.counts)
-    est = Estimate(
+    r2c = corrected_scrambled(r1, r2, n_years=ny, design=boot.scramble)
+    d2c = corrected_scrambled(d1, d2, n_years=ny, design=boot.scramble)
+
+    def iv(draws: FloatArray, point: FloatArray) -> Interval:
+        return _reshape(_masked(boot.interval(draws, point), ok), cols)
+
+    return Estimate(
         acc_realistic=r1.reshape(cols),
         acc_scrambled=r2.reshape(cols),
-        realistic=_reshape(boot.interval(d1), cols),
-        scrambled=_reshape(boot.interval(d2), cols),
-        gain=_reshape(boot.interval(d1 - d2), cols),
-        n_samples=total_sums(flat)[0].reshape(cols),
-        n_years=(flat[:, 0] > 0).sum(axis=0).reshape(cols).astype(np.float64),
+        realistic=iv(d1, r1),
+        scrambled=iv(d2, r2),
+        gain=iv(d1 - d2, r1 - r2),
+        n_samples=n.reshape(cols),
+        n_years=ny.reshape(cols),
+        acc_scrambled_corrected=r2c.reshape(cols),
+        scrambled_corrected=iv(d2c, r2c),
+        gain_corrected=iv(d1 - d2c, r1 - r2c),
+        interval_method=boot.method,
     )
-    return est
+
+
+def _masked(iv: Interval, ok: NDArray[np.bool_]) -> Interval:
+    """NaN bounds and p-value where a column is not scored (too few years or samples)."""
+    return Interval(
+        low=np.where(ok, iv.low, np.nan), high=np.where(ok, iv.high, np.nan),
+        p_value=np.where(ok, iv.p_value, np.nan),
+    )
 
 
 def _reshape(iv: Interval, shape: tuple[int, ...]) -> Interval:
     return Interval(low=iv.low.reshape(shape), high=iv.high.reshape(shape), p_value=iv.p_value.reshape(shape))
+
+
+def _scaled(iv: Interval, factor: FloatArray) -> Interval:
+    """The interval of ``factor * draws`` (factor > 0): order statistics and the median shift
+    commute with a positive factor, and no draw changes sign, so the p-value is the same."""
+    return Interval(low=iv.low * factor, high=iv.high * factor, p_value=iv.p_value)
 
 
 @dataclass
@@ -115,11 +176,19 @@ class CellResults:
     gain_high: FloatArray
     p_value: FloatArray
     n_samples: FloatArray
+    n_years: FloatArray
+    acc_scrambled_corrected: FloatArray
+    gain_corrected_low: FloatArray
+    gain_corrected_high: FloatArray
     region_mean: list[Estimate]  # one per region, columns = windows
 
     @property
     def gain(self) -> FloatArray:
         return self.acc_realistic - self.acc_scrambled
+
+    @property
+    def gain_corrected(self) -> FloatArray:
+        return self.acc_realistic - self.acc_scrambled_corrected
 
 
 @dataclass
@@ -128,13 +197,13 @@ class BlockStats:
 
     cells: NDArray[np.int64]
     maps: dict[str, FloatArray]  # each (n_windows, n_block_cells)
-    z_point: FloatArray  # (2, R, W)
+    z_point: FloatArray  # (3, R, W): realistic, scrambled, scrambled corrected
     w_point: FloatArray
-    z_draws: FloatArray  # (2, R, B, W)
+    z_draws: FloatArray  # (3, R, B, W)
     w_draws: FloatArray
 
 
-MAP_KEYS = ("r1", "r2", "low", "high", "p", "n", "ny")
+MAP_KEYS = ("r1", "r2", "low", "high", "p", "n", "ny", "r2c", "clow", "chigh")
 
 
 def block_stats(
@@ -150,24 +219,35 @@ def block_stats(
     yearly = yearly_sums(realistic, scrambled, observed)  # (Y, 9, W, m)
     flat = yearly.reshape(yearly.shape[0], yearly.shape[1], W * m)
     totals = total_sums(flat)
+    n, ny = totals[0], (flat[:, 0] > 0).sum(axis=0).astype(np.float64)
     r1, r2 = correlations_from_sums(totals)
+    ok = _enough(n, ny, boot)
+    r1, r2 = np.where(ok, r1, np.nan), np.where(ok, r2, np.nan)
     d1, d2 = resampled_correlations(flat, boot.counts)
-    gain_iv = boot.interval(d1 - d2)
+    gain_iv = _masked(boot.interval(d1 - d2, r1 - r2), ok)
+    factor = gain_factor(ny, design=boot.scramble)
+    corrected_iv = _scaled(gain_iv, factor)
+    r2c = corrected_scrambled(r1, r2, n_years=ny, design=boot.scramble)
+    d2c = corrected_scrambled(d1, d2, n_years=ny, design=boot.scramble)
     maps = {
-        "r1": r1.reshape(W, m),
-        "r2": r2.reshape(W, m),
-        "low": gain_iv.low.reshape(W, m),
-        "high": gain_iv.high.reshape(W, m),
-        "p": gain_iv.p_value.reshape(W, m),
-        "n": totals[0].reshape(W, m),
-        "ny": (flat[:, 0] > 0).sum(axis=0).reshape(W, m).astype(np.float64),
+        "r1": r1, "r2": r2, "low": gain_iv.low, "high": gain_iv.high, "p": gain_iv.p_value,
+        "n": n, "ny": ny, "r2c": r2c, "clow": corrected_iv.low, "chigh": corrected_iv.high,
     }
+    maps = {k: v.reshape(W, m) for k, v in maps.items()}
+    # each resample's own sample counts weight its cells (missing years drop out with them)
+    n_draws = (boot.counts @ flat[:, 0, :]).reshape(B, W, m)
     R = weights.shape[0]
-    z_point, w_point = np.zeros((2, R, W)), np.zeros((2, R, W))
-    z_draws, w_draws = np.zeros((2, R, B, W)), np.zeros((2, R, B, W))
-    for e, (pt, dr) in enumerate(((r1, d1), (r2, d2))):
-        z_point[e], w_point[e] = weighted_sums(_fisher_z(pt).reshape(W, m), weights)
-        z_draws[e], w_draws[e] = weighted_sums(_fisher_z(dr).reshape(B, W, m), weights)
+    z_point, w_point = np.zeros((3, R, W)), np.zeros((3, R, W))
+    z_draws, w_draws = np.zeros((3, R, B, W)), np.zeros((3, R, B, W))
+    n_point = np.where(ok, n, 0.0).reshape(W, m)
+    for e, (pt, dr) in enumerate(((r1, d1), (r2, d2), (r2c, d2c))):
+        z_point[e], w_point[e] = weighted_z_sums(
+            fisher_z(pt).reshape(W, m), n_point, weights, min_samples=boot.min_cell_samples
+        )
+        z_draws[e], w_draws[e] = weighted_z_sums(
+            fisher_z(dr).reshape(B, W, m), np.where(n_point > 0, n_draws, 0.0), weights,
+            min_samples=boot.min_cell_samples,
+        )
     return BlockStats(np.asarray(cells), maps, z_point, w_point, z_draws, w_draws)
 
 
@@ -183,8 +263,8 @@ def combine_blocks(
     """Maps and region means of ACC from all blocks (the order of blocks does not matter)."""
     W, B, R = n_windows, boot.resamples, weights.shape[0]
     maps = {k: np.full((W, n_cells), np.nan) for k in MAP_KEYS}
-    z_point, w_point = np.zeros((2, R, W)), np.zeros((2, R, W))
-    z_draws, w_draws = np.zeros((2, R, B, W)), np.zeros((2, R, B, W))
+    z_point, w_point = np.zeros((3, R, W)), np.zeros((3, R, W))
+    z_draws, w_draws = np.zeros((3, R, B, W)), np.zeros((3, R, B, W))
     for blk in sorted(blocks, key=lambda b: int(b.cells[0]) if b.cells.size else -1):
         for k in MAP_KEYS:
             maps[k][:, blk.cells] = blk.maps[k]
@@ -193,24 +273,40 @@ def combine_blocks(
         z_draws += blk.z_draws
         w_draws += blk.w_draws
     with np.errstate(invalid="ignore", divide="ignore"):
-        acc_pt = np.tanh(z_point / w_point)  # (2, R, W)
-        acc_dr = np.tanh(z_draws / w_draws)  # (2, R, B, W)
+        zp = z_point / w_point  # (3, R, W) mean z
+        zd = z_draws / w_draws  # (3, R, B, W)
+    accp, accd = np.tanh(zp), np.tanh(zd)
     inside = weights[:, None, :] > 0
     regions = []
     for r in range(R):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN slices of empty windows
-            n_max = np.nanmax(np.where(inside[r], maps["n"], np.nan), axis=1)
-            ny_max = np.nanmax(np.where(inside[r], maps["ny"], np.nan), axis=1)
+            entered = inside[r] & (maps["n"] >= boot.min_cell_samples)
+            n_max = np.nanmax(np.where(entered, maps["n"], np.nan), axis=1)
+            ny_max = np.nanmax(np.where(entered, maps["ny"], np.nan), axis=1)
+
+        def z_interval(e: int, *, rr: int = r) -> Interval:
+            iv = boot.interval(zd[e, rr], zp[e, rr], method=REGION_MEAN_METHOD)
+            return Interval(low=np.tanh(iv.low), high=np.tanh(iv.high), p_value=iv.p_value)
+
+        def gain_interval(e: int, *, rr: int = r) -> Interval:
+            return boot.interval(
+                accd[0, rr] - accd[e, rr], accp[0, rr] - accp[e, rr], method=REGION_MEAN_METHOD
+            )
+
         regions.append(
             Estimate(
-                acc_realistic=acc_pt[0, r],
-                acc_scrambled=acc_pt[1, r],
-                realistic=boot.interval(acc_dr[0, r]),
-                scrambled=boot.interval(acc_dr[1, r]),
-                gain=boot.interval(acc_dr[0, r] - acc_dr[1, r]),
+                acc_realistic=accp[0, r],
+                acc_scrambled=accp[1, r],
+                realistic=z_interval(0),
+                scrambled=z_interval(1),
+                gain=gain_interval(1),
                 n_samples=n_max,
                 n_years=ny_max,
+                acc_scrambled_corrected=accp[2, r],
+                scrambled_corrected=z_interval(2),
+                gain_corrected=gain_interval(2),
+                interval_method=REGION_MEAN_METHOD,
             )
         )
     return CellResults(
@@ -220,6 +316,10 @@ def combine_blocks(
         gain_high=maps["high"],
         p_value=maps["p"],
         n_samples=maps["n"],
+        n_years=maps["ny"],
+        acc_scrambled_corrected=maps["r2c"],
+        gain_corrected_low=maps["clow"],
+        gain_corrected_high=maps["chigh"],
         region_mean=regions,
     )
 
@@ -235,8 +335,8 @@ def assess_cells(
     """Bootstrap every cell once (in blocks, here in this process); maps and region means.
 
     ``weights`` is ``(n_regions, n_cells)``: cos(lat) inside each region. The region mean of ACC
-    is the weighted mean of the cell ACCs in Fisher z space, transformed back, for the point value
-    and for each resample alike (its interval comes from the same resampled years).
+    is the sample-weighted mean of the cell ACCs in Fisher z space, transformed back, for the
+    point value and for each resample alike (its interval comes from the same resampled years).
     """
     blocks = cell_blocks(weights, cube.n_cells, block_cells=block_cells)
     done = []
@@ -250,10 +350,6 @@ def assess_cells(
         if progress is not None:
             progress((i + 1) / len(blocks))
     return combine_blocks(done, boot, weights, n_windows=cube.n_windows, n_cells=cube.n_cells)
-
-
-def _fisher_z(r: FloatArray) -> FloatArray:
-    return np.arctanh(np.clip(r, -Z_CLIP, Z_CLIP))
 
 
 def significant_cells(p_value: FloatArray, *, alpha: float) -> NDArray[np.bool_]:
@@ -276,42 +372,12 @@ def region_series(cube: Cube, weights: FloatArray) -> tuple[FloatArray, FloatArr
     return out[0], out[1], out[2], land
 
 
-#: strata of the standardised initial land anomaly z: name -> rule on (z, lower, upper tercile)
-STRATA: tuple[str, ...] = ("dry", "middle", "wet", "large_anomaly")
-
-
-def strata_masks(z: FloatArray) -> dict[str, NDArray[np.bool_]]:
-    """Samples in each stratum of the regional-mean standardised land anomaly ``z`` (Y, S).
-
-    Terciles over all samples with data: ``dry`` (lowest third), ``middle``, ``wet`` (highest
-    third); ``large_anomaly``: |z| in its highest third.
-    """
-    finite = np.isfinite(z)
-    if finite.sum() < 3:
-        return {name: np.zeros(z.shape, dtype=bool) for name in STRATA}
-    lo, hi = np.quantile(z[finite], [1.0 / 3.0, 2.0 / 3.0])
-    big = np.quantile(np.abs(z[finite]), 2.0 / 3.0)
-    zz = np.where(finite, z, np.nan)
-    with np.errstate(invalid="ignore"):
-        return {
-            "dry": finite & (zz <= lo),
-            "middle": finite & (zz > lo) & (zz < hi),
-            "wet": finite & (zz >= hi),
-            "large_anomaly": finite & (np.abs(zz) > big),
-        }
-
-
 def estimate_strata(
     x1: FloatArray, x2: FloatArray, y: FloatArray, z: FloatArray, boot: Bootstrap
-) -> dict[str, tuple[Estimate, float]]:
-    """ACCs and gain of series ``(Y, S, W)`` within each land-anomaly stratum, with the
-    stratum's mean z."""
-    out = {}
-    for name, mask in strata_masks(z).items():
-        keep = mask[:, :, None]
-        est = estimate_series(
-            np.where(keep, x1, np.nan), np.where(keep, x2, np.nan), np.where(keep, y, np.nan), boot
-        )
-        mean_z = float(np.mean(z[mask])) if mask.any() else float("nan")
-        out[name] = (est, mean_z)
-    return out
+) -> dict[str, StratumEstimate]:
+    """Gain of series ``(Y, S, W)`` by stratum of the (re-standardised) land anomaly ``z``,
+    scored about the full-period climatology (:func:`app.stats.conditional.conditional_gain`)."""
+    return conditional_gain(
+        x1, x2, y, z, boot.counts, confidence=boot.confidence, method=boot.method,
+        scramble=boot.scramble,
+    )

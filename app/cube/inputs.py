@@ -20,8 +20,12 @@ from app.cube.units import Conversion, conversion, parse_units
 from app.cube.windows import LeadWindow, default_windows, lead_indices
 from app.errors import InputError
 from app.stats.anomalies import anomalies, ensemble_mean, standardized_anomalies, window_means
+from app.stats.resample import MIN_YEAR_BLOCKS
 
-MIN_YEARS = 3
+MIN_YEARS = MIN_YEAR_BLOCKS
+#: default share of a window's days that must be observed for it to count (common practice: an
+#: 80 % rule is usual for weekly and monthly means; no single published source fixes it)
+DEFAULT_MIN_COVERAGE = 0.8
 FloatArray = NDArray[np.float64]
 
 
@@ -44,6 +48,8 @@ class Prepared:
     pos_scrambled: NDArray[np.int64]
     pos_land: NDArray[np.int64] | None  # -1 where the land state lacks that start
     obs_start: NDArray[np.int64]  # (n_init, n_windows) first obs index, -1 if not covered
+    min_coverage: float  # share of a window's days that must be observed
+    coverage_dropped: NDArray[np.int64]  # (n_windows,) start dates dropped by that rule
     to_units: dict[str, Conversion]
     units: str
     variable: str
@@ -81,6 +87,12 @@ class Prepared:
                 "scrambled": int(self.scrambled.members or 0),
             },
             "grid": {"lat": int(self.lat.size), "lon": int(self.lon.size)},
+            "coverage": {
+                "min_fraction": self.min_coverage,
+                "dropped_start_dates": {
+                    w.label: int(d) for w, d in zip(self.windows, self.coverage_dropped, strict=True)
+                },
+            },
             "warnings": list(self.warnings),
         }
 
@@ -95,8 +107,12 @@ def prepare(
     windows: list[LeadWindow] | None = None,
     equalize_members: bool = False,
     seed: int = 1234,
+    min_coverage: float = DEFAULT_MIN_COVERAGE,
 ) -> Prepared:
-    """Open and cross-check the inputs; InputError naming file, variable and problem."""
+    """Open and cross-check the inputs; InputError naming file, variable and problem.
+
+    An observed window counts only when at least ``min_coverage`` of its days are present
+    (in the file's dates, and per cell when the tile is reduced)."""
     opened: list[Source] = []
     try:
         real = _open(realistic, "hindcast", variable, opened)
@@ -105,7 +121,10 @@ def prepare(
         land = _open(land_state, "land_state", None, opened) if land_state is not None else None
         if land is not None:
             check_not_all_nan(land)
-        return _cross_check(real, scr, obs, land, windows=windows, equalize=equalize_members, seed=seed)
+        return _cross_check(
+            real, scr, obs, land, windows=windows, equalize=equalize_members, seed=seed,
+            min_coverage=min_coverage,
+        )
     except Exception:
         for src in opened:
             src.close()
@@ -135,6 +154,7 @@ def _cross_check(
     windows: list[LeadWindow] | None,
     equalize: bool,
     seed: int,
+    min_coverage: float,
 ) -> Prepared:
     warnings = [w for s in (real, scr, obs, land) if s is not None for w in s.warnings]
     target = parse_units(real.units, file=real.name, variable=real.variable)
@@ -176,7 +196,7 @@ def _cross_check(
     if any(not np.array_equal(a, b) for a, b in zip(lead_index, lead_index_scr, strict=True)):
         raise InputError(f"lead days differ from those of {real.name}", file=scr.name, variable=scr.variable)
 
-    obs_start = _observation_index(obs, common, wins)
+    obs_start, coverage_dropped = _observation_index(obs, common, wins, min_coverage=min_coverage)
     covered = (obs_start >= 0).any(axis=1)
     if not covered.any():
         raise InputError(
@@ -204,7 +224,8 @@ def _cross_check(
     thin = [str(s) for s, n in zip(slots, per_slot, strict=True) if n < MIN_YEARS]
     if thin:
         warnings.append(
-            f"start slot(s) {', '.join(thin)} have fewer than {MIN_YEARS} years and give no anomalies"
+            f"start slot(s) {', '.join(thin)} have fewer than {MIN_YEARS} years: their climatology "
+            "rests on few years"
         )
 
     pos_land = None
@@ -235,6 +256,8 @@ def _cross_check(
         pos_scrambled=_positions(scr.init_dates, common),
         pos_land=pos_land,
         obs_start=obs_start,
+        min_coverage=min_coverage,
+        coverage_dropped=coverage_dropped,
         to_units=to_units,
         units=real.units,
         variable=real.variable,
@@ -269,8 +292,16 @@ def _positions(dates: NDArray[np.datetime64], wanted: NDArray[np.datetime64]) ->
     return np.where(dates[idx] == wanted, idx, -1).astype(np.int64)
 
 
-def _observation_index(obs: Source, inits: NDArray[np.datetime64], wins: list[LeadWindow]) -> NDArray[np.int64]:
-    """First observation index of each (start, window), -1 unless every day of it is present."""
+def required_days(window: LeadWindow, min_coverage: float) -> int:
+    """Days of ``window`` that must be observed (at least one)."""
+    return max(1, int(np.ceil(min_coverage * window.days - 1e-9)))
+
+
+def _observation_index(
+    obs: Source, inits: NDArray[np.datetime64], wins: list[LeadWindow], *, min_coverage: float
+) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """First observation index of each (start, window), -1 unless at least ``min_coverage`` of
+    its days are in the file; and per window how many starts had some days but too few."""
     dates = obs.dates
     assert dates is not None
     full = np.arange(dates[0], dates[-1] + np.timedelta64(1, "D"))
@@ -278,14 +309,18 @@ def _observation_index(obs: Source, inits: NDArray[np.datetime64], wins: list[Le
     present[(dates - dates[0]).astype(np.int64)] = True
     csum = np.concatenate([[0], np.cumsum(present)])
     out = np.full((inits.size, len(wins)), -1, dtype=np.int64)
+    dropped = np.zeros(len(wins), dtype=np.int64)
+    total = np.concatenate([csum, np.full(1, csum[-1])])
     for k, w in enumerate(wins):
         i0 = ((inits + np.timedelta64(w.first_day - 1, "D")) - dates[0]).astype(np.int64)
         i1 = i0 + w.days
-        inside = (i0 >= 0) & (i1 <= full.size)
-        some = np.zeros_like(inside)
-        some[inside] = csum[i1[inside]] > csum[i0[inside]]
-        out[:, k] = np.where(inside & some, i0, -1)
-    return out
+        # days present inside the window (a window may run past either end of the record)
+        lo, hi = np.clip(i0, 0, full.size), np.clip(i1, 0, full.size)
+        have = total[hi] - total[lo]
+        enough = have >= required_days(w, min_coverage)
+        out[:, k] = np.where(enough, i0, -1)
+        dropped[k] = int(((have > 0) & ~enough).sum())
+    return out, dropped
 
 
 def _date_range(dates: NDArray[np.datetime64] | None) -> str:
@@ -302,13 +337,15 @@ class TileAnomalies:
     scrambled: FloatArray
     observed: FloatArray
     land: FloatArray | None
+    #: per window, the (start, cell) samples whose observed window had too few days
+    coverage_dropped: NDArray[np.int64]
 
 
 def reduce_tile(prep: Prepared, *, lat: slice, lon: slice, leave_one_out: bool = True) -> TileAnomalies:
     """Read one tile of every input and reduce it to anomalies (see module docstring)."""
     x1 = _hindcast_windows(prep, prep.realistic, prep.pos_realistic, prep.members_realistic, "realistic", lat, lon)
     x2 = _hindcast_windows(prep, prep.scrambled, prep.pos_scrambled, prep.members_scrambled, "scrambled", lat, lon)
-    y = _observed_windows(prep, lat, lon)
+    y, dropped = _observed_windows(prep, lat, lon)
     land = None
     if prep.land_state is not None and prep.pos_land is not None:
         raw = prep.land_state.read(lat=lat, lon=lon)  # (init, lat, lon)
@@ -322,6 +359,7 @@ def reduce_tile(prep: Prepared, *, lat: slice, lon: slice, leave_one_out: bool =
         scrambled=anomalies(_to_year_slot(prep, x2), leave_one_out=leave_one_out),
         observed=anomalies(_to_year_slot(prep, y), leave_one_out=leave_one_out),
         land=land,
+        coverage_dropped=dropped,
     )
 
 
@@ -344,7 +382,10 @@ def _hindcast_windows(
     return win.reshape(win.shape[0], win.shape[1], -1)
 
 
-def _observed_windows(prep: Prepared, lat: slice, lon: slice) -> FloatArray:
+def _observed_windows(prep: Prepared, lat: slice, lon: slice) -> tuple[FloatArray, NDArray[np.int64]]:
+    """Observed window means ``(n_init, n_windows, n_cells)``, NaN where fewer than the required
+    share of the window's days are finite in that cell; and per window the (start, cell)
+    samples that rule dropped."""
     raw = prep.observations.read(lat=lat, lon=lon, convert=prep.to_units["observations"])
     dates = prep.observations.dates
     assert dates is not None
@@ -353,6 +394,7 @@ def _observed_windows(prep: Prepared, lat: slice, lon: slice) -> FloatArray:
     csum = np.concatenate([np.zeros((1, flat.shape[1])), np.cumsum(np.where(finite, flat, 0.0), axis=0)])
     ccnt = np.concatenate([np.zeros((1, flat.shape[1])), np.cumsum(finite, axis=0)])
     out = np.full((prep.init_dates.size, len(prep.windows), flat.shape[1]), np.nan)
+    dropped = np.zeros(len(prep.windows), dtype=np.int64)
     for k, w in enumerate(prep.windows):
         start = prep.obs_start[:, k]
         ok = start >= 0
@@ -361,9 +403,11 @@ def _observed_windows(prep: Prepared, lat: slice, lon: slice) -> FloatArray:
         s1 = np.searchsorted(dates, first + np.timedelta64(w.days - 1, "D"), side="right")
         total = csum[s1] - csum[s0]
         count = ccnt[s1] - ccnt[s0]
+        need = required_days(w, prep.min_coverage)
         with np.errstate(invalid="ignore", divide="ignore"):
-            out[ok, k] = np.where(count > 0, total / count, np.nan)
-    return out
+            out[ok, k] = np.where(count >= need, total / count, np.nan)
+        dropped[k] = int(((count > 0) & (count < need)).sum())
+    return out, dropped
 
 
 def _to_year_slot(prep: Prepared, values: FloatArray) -> FloatArray:

@@ -33,13 +33,16 @@ from app.cube.assess import (
     region_series,
     significant_cells,
 )
-from app.cube.inputs import Prepared, prepare
+from app.cube.inputs import DEFAULT_MIN_COVERAGE, Prepared, prepare
 from app.cube.parallel import TaskRunner
 from app.cube.regions import ALL, Region, region_weights
 from app.cube.tiles import InputSpec, TileOutput, block_size, plan_tiles, task_budget, tile_task
 from app.cube.windows import LeadWindow
 from app.errors import InputError
+from app.stats.conditional import StratumEstimate
+from app.stats.fisher import MIN_CELL_SAMPLES
 from app.stats.resample import year_block_counts
+from app.stats.scramble import DEFAULT_SCRAMBLE
 
 Progress = Callable[[float, str], None]
 
@@ -53,9 +56,14 @@ class Resampling:
     confidence: float = 0.95
     interval: str = "expanded"
 
-    def bootstrap(self, n_years: int) -> Bootstrap:
+    def bootstrap(
+        self, n_years: int, *, scramble: str = DEFAULT_SCRAMBLE, min_cell_samples: int = MIN_CELL_SAMPLES
+    ) -> Bootstrap:
         counts = year_block_counts(n_years, resamples=self.resamples, seed=self.seed)
-        return Bootstrap(counts=counts, confidence=self.confidence, method=self.interval)  # type: ignore[arg-type]
+        return Bootstrap(
+            counts=counts, confidence=self.confidence, method=self.interval,  # type: ignore[arg-type]
+            scramble=scramble, min_cell_samples=min_cell_samples,
+        )
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -72,6 +80,14 @@ class Scoring:
     fdr_alpha: float = 0.10
     equalize_members: bool = False
     leave_one_out: bool = True
+    scramble: str = DEFAULT_SCRAMBLE
+    min_cell_samples: int = MIN_CELL_SAMPLES
+    min_coverage: float = DEFAULT_MIN_COVERAGE
+
+    def make_bootstrap(self, n_years: int) -> Bootstrap:
+        return self.bootstrap.bootstrap(
+            n_years, scramble=self.scramble, min_cell_samples=self.min_cell_samples
+        )
 
 
 def check_inputs(
@@ -83,12 +99,13 @@ def check_inputs(
     variable: str | None = None,
     lead_windows: tuple[LeadWindow, ...] | None = None,
     regions: tuple[Region, ...] = (),
+    min_coverage: float = DEFAULT_MIN_COVERAGE,
 ) -> dict[str, Any]:
     """Open and cross-check the inputs without scoring: the layout summary, or InputError (and
     ParameterError for a region that holds no cell of the grid)."""
     prep = prepare(
         realistic, scrambled, observations, land_state, variable=variable,
-        windows=list(lead_windows) if lead_windows else None,
+        windows=list(lead_windows) if lead_windows else None, min_coverage=min_coverage,
     )
     try:
         if regions:
@@ -114,7 +131,7 @@ class RunOutput:
     significant: NDArray[np.bool_]
     regions: list[Region]
     series: list[Estimate]  # acc_of_region_mean per region
-    strata: list[dict[str, tuple[Estimate, float]]] | None  # per region
+    strata: list[dict[str, StratumEstimate]] | None  # per region
     counts: NDArray[np.float64] = field(repr=False)
     region_masks: NDArray[np.float64] = field(repr=False)
 
@@ -142,11 +159,12 @@ def run(
         realistic, scrambled, observations, land_state,
         variable=scoring.variable, windows=windows,
         equalize_members=scoring.equalize_members, seed=scoring.bootstrap.seed,
+        min_coverage=scoring.min_coverage,
     )
     try:
         regions = [ALL] + [r for r in scoring.regions if r.id != "all"]
         weights = region_weights(regions, prep.lat, prep.lon)
-        boot = scoring.bootstrap.bootstrap(prep.years.size)
+        boot = scoring.make_bootstrap(prep.years.size)
         with TaskRunner(scheduler, threads=threads or min(2, os.cpu_count() or 1)) as runner:
             budget = task_budget(memory_budget, workers=1 if runner.distributed else runner.threads)
             block = block_size(budget, resamples=boot.resamples, n_windows=len(prep.windows))
@@ -157,7 +175,7 @@ def run(
                     str(Path(observations).resolve()),
                     str(Path(land_state).resolve()) if land_state is not None else None,
                     scoring.variable, scoring.lead_windows,
-                    scoring.equalize_members, scoring.bootstrap.seed,
+                    scoring.equalize_members, scoring.bootstrap.seed, scoring.min_coverage,
                 )
             tasks = [
                 (source, rows, cols, weights, boot, scoring.leave_one_out, block)
@@ -178,8 +196,14 @@ def run(
         strata = None
         if zr is not None:
             strata = [estimate_strata(x1r[k], x2r[k], yr[k], zr[k], boot) for k in range(len(regions))]
+        summary: dict[str, Any] = prep.summary()
+        cell_drops = np.sum([o.anomalies.coverage_dropped for o in outputs], axis=0)
+        summary["coverage"] = dict(summary["coverage"])  # type: ignore[call-overload]
+        summary["coverage"]["dropped_cell_samples"] = {
+            w.label: int(d) for w, d in zip(prep.windows, cell_drops, strict=True)
+        }
         out = RunOutput(
-            scoring=scoring, summary=prep.summary(), windows=prep.windows, lat=prep.lat, lon=prep.lon,
+            scoring=scoring, summary=summary, windows=prep.windows, lat=prep.lat, lon=prep.lon,
             years=prep.years, slots=prep.slots, cube=cube, cells=cells, significant=significant,
             regions=regions, series=series, strata=strata, counts=boot.counts, region_masks=weights,
         )
@@ -222,7 +246,7 @@ class RegionAssessment:
     series: Estimate
     mean_of_acc: Estimate
     fraction_significant: NDArray[np.float64]
-    strata: dict[str, tuple[Estimate, float]] | None
+    strata: dict[str, StratumEstimate] | None
 
 
 def assess_region(
@@ -231,12 +255,12 @@ def assess_region(
     *,
     lat: NDArray[np.float64],
     lon: NDArray[np.float64],
-    bootstrap: Resampling,
+    scoring: Scoring,
     significant: NDArray[np.bool_] | None = None,
 ) -> RegionAssessment:
     """One region of an already reduced cube, with the run's own resampled years (same seed)."""
     weights = region_weights([region], lat, lon)
-    boot = bootstrap.bootstrap(cube.n_years)
+    boot = scoring.make_bootstrap(cube.n_years)
     cells = assess_cells(cube, boot, weights)
     x1r, x2r, yr, zr = region_series(cube, weights)
     strata = estimate_strata(x1r[0], x2r[0], yr[0], zr[0], boot) if zr is not None else None

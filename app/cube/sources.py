@@ -25,6 +25,7 @@ from numpy.typing import NDArray
 
 from app.cube.units import Conversion, parse_units
 from app.errors import InputError
+from app.stats.resample import MIN_YEAR_BLOCKS
 
 ROLES: tuple[str, ...] = ("hindcast", "observations", "land_state")
 Role = Literal["hindcast", "observations", "land_state"]
@@ -52,7 +53,7 @@ ROLE_DIMS: dict[str, tuple[str, ...]] = {
     "land_state": (INIT, LAT, LON),
 }
 GRID_TOLERANCE = 1e-5
-MIN_YEARS = 3
+MIN_YEARS = MIN_YEAR_BLOCKS
 
 
 @dataclass

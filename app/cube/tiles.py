@@ -81,12 +81,13 @@ class InputSpec:
     lead_windows: tuple[LeadWindow, ...] | None
     equalize_members: bool
     seed: int
+    min_coverage: float
 
     def open(self) -> Prepared:
         return prepare(
             self.realistic, self.scrambled, self.observations, self.land_state,
             variable=self.variable, windows=list(self.lead_windows) if self.lead_windows else None,
-            equalize_members=self.equalize_members, seed=self.seed,
+            equalize_members=self.equalize_members, seed=self.seed, min_coverage=self.min_coverage,
         )
 
 

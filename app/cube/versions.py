@@ -17,6 +17,7 @@ from numpy.typing import NDArray
 from app.cube.assess import Bootstrap, Cube, region_series
 from app.stats.bootstrap import resampled_correlations
 from app.stats.intervals import Interval
+from app.stats.scramble import DEFAULT_SCRAMBLE, corrected_gain
 from app.stats.signtest import SignTest, random_walk_sign_test
 from app.stats.sums import correlations_from_sums, total_sums, yearly_sums
 
@@ -34,7 +35,11 @@ class VersionComparison:
     gain_difference: Interval
     acc_realistic_difference: Interval
     n_samples: NDArray[np.int64]
+    n_years: NDArray[np.int64]
     sign_tests: list[SignTest]
+    #: the difference of the gains, each corrected for its own scrambled-control design
+    gain_difference_corrected_value: FloatArray
+    gain_difference_corrected: Interval
 
     @property
     def gain_baseline(self) -> FloatArray:
@@ -46,9 +51,19 @@ class VersionComparison:
 
 
 def compare_cubes(
-    baseline: Cube, candidate: Cube, weights: FloatArray, boot: Bootstrap
+    baseline: Cube,
+    candidate: Cube,
+    weights: FloatArray,
+    boot: Bootstrap,
+    *,
+    baseline_scramble: str = DEFAULT_SCRAMBLE,
+    candidate_scramble: str = DEFAULT_SCRAMBLE,
 ) -> VersionComparison:
-    """Compare two cubes of the same samples over one region (``weights`` is ``(1, n_cells)``)."""
+    """Compare two cubes of the same samples over one region (``weights`` is ``(1, n_cells)``).
+
+    The sign test takes one vote per year (the starts of a year share their weather); each
+    experiment's gain is also corrected under its own scrambled-control design before the
+    difference is taken (:func:`app.stats.scramble.corrected_gain`)."""
     x1a, x2a, y, _ = region_series(baseline, weights)
     x1b, x2b, _, _ = region_series(candidate, weights)
     x1a, x2a, y, x1b, x2b = (v[0] for v in (x1a, x2a, y, x1b, x2b))
@@ -60,20 +75,31 @@ def compare_cubes(
     r1b, r2b = correlations_from_sums(total_sums(sums_b))
     d1a, d2a = resampled_correlations(sums_a, boot.counts)
     d1b, d2b = resampled_correlations(sums_b, boot.counts)
+    ny = (sums_a[:, 0] > 0).sum(axis=0).astype(np.float64)  # years of the common series
     tests = []
     for w in range(y.shape[-1]):
-        err_a = np.abs(x1a[..., w] - y[..., w]).ravel()  # year-major: chronological within slots
-        err_b = np.abs(x1b[..., w] - y[..., w]).ravel()
+        err_a = np.abs(x1a[..., w] - y[..., w])  # (n_years, n_slots): one vote per year
+        err_b = np.abs(x1b[..., w] - y[..., w])
         tests.append(random_walk_sign_test(err_a, err_b, confidence=boot.confidence))
+
+    def diff(r1a_: FloatArray, r2a_: FloatArray, r1b_: FloatArray, r2b_: FloatArray) -> FloatArray:
+        return corrected_gain(r1b_, r2b_, n_years=ny, design=candidate_scramble) - corrected_gain(
+            r1a_, r2a_, n_years=ny, design=baseline_scramble
+        )
+
+    point_c = diff(r1a, r2a, r1b, r2b)
     return VersionComparison(
         acc_realistic_baseline=r1a,
         acc_scrambled_baseline=r2a,
         acc_realistic_candidate=r1b,
         acc_scrambled_candidate=r2b,
-        gain_difference=boot.interval((d1b - d2b) - (d1a - d2a)),
-        acc_realistic_difference=boot.interval(d1b - d1a),
+        gain_difference=boot.interval((d1b - d2b) - (d1a - d2a), (r1b - r2b) - (r1a - r2a)),
+        acc_realistic_difference=boot.interval(d1b - d1a, r1b - r1a),
         n_samples=joint.sum(axis=(0, 1)).astype(np.int64),
+        n_years=ny.astype(np.int64),
         sign_tests=tests,
+        gain_difference_corrected_value=point_c,
+        gain_difference_corrected=boot.interval(diff(d1a, d2a, d1b, d2b), point_c),
     )
 
 

@@ -24,6 +24,7 @@ def comparison_json(
             {
                 **win.to_dict(),
                 "n_samples": int(cmp.n_samples[w]),
+                "n_years": int(cmp.n_years[w]),
                 "gain_baseline": _num(cmp.gain_baseline[w]),
                 "gain_candidate": _num(cmp.gain_candidate[w]),
                 "gain_difference": {
@@ -40,12 +41,20 @@ def comparison_json(
                     "high": _num(cmp.acc_realistic_difference.high[w]),
                     "p_value": _num(cmp.acc_realistic_difference.p_value[w]),
                 },
+                "gain_difference_corrected": {
+                    "value": _num(cmp.gain_difference_corrected_value[w]),
+                    "low": _num(cmp.gain_difference_corrected.low[w]),
+                    "high": _num(cmp.gain_difference_corrected.high[w]),
+                    "p_value": _num(cmp.gain_difference_corrected.p_value[w]),
+                },
                 "sign_test": {
+                    "unit": "year",
                     "candidate_better": st.candidate_better,
                     "baseline_better": st.baseline_better,
                     "ties": st.ties,
-                    "walk": int(st.walk[-1]),
-                    "bound": round(st.bound, 3),
+                    "missing_years": st.missing_years,
+                    "walk": st.final,
+                    "bound": _num(st.bound),
                     "p_value": _num(st.p_value),
                     "significant": st.significant,
                 },

@@ -17,6 +17,11 @@ MAP_FIELDS: tuple[str, ...] = (
     "acc_scrambled",
     "p_value",
     "significant",
+    # with scramble "other_years" (fields are only ever added)
+    "gain_corrected",
+    "gain_corrected_low",
+    "gain_corrected_high",
+    "acc_scrambled_corrected",
 )
 #: the files of a saved score result (``ScoreResult.save`` / ``ScoreResult.load``)
 RESULT_FILES: tuple[str, ...] = ("skill.json", "maps.nc", "anomalies.nc", "result.json")

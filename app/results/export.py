@@ -32,8 +32,9 @@ def write_result_folder(result: ScoreResult, out_dir: Path) -> dict[str, Path]:
         for curve in result.curves:
             name = f"skill_{slug(curve['region'])}_{slug(curve['aggregation'])}.png"
             (figs / name).write_bytes(skill_png(curve))
+        field = "gain_corrected" if "gain_corrected" in result.maps else "gain"
         for label in result.window_labels:
-            (figs / f"gain_{slug(label)}.png").write_bytes(map_png(result.maps, window=label, field="gain"))
+            (figs / f"gain_{slug(label)}.png").write_bytes(map_png(result.maps, window=label, field=field))
         final: dict[str, Path] = {}
         for name in written:
             os.replace(staging / name, out_dir / name)

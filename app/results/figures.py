@@ -15,6 +15,10 @@ from app.stats.intervals import significance_level
 
 FIELD_STYLE: dict[str, tuple[str, float | None]] = {
     "gain": ("RdBu_r", 0.6),
+    "gain_corrected": ("RdBu_r", 0.6),
+    "gain_corrected_low": ("RdBu_r", 0.6),
+    "gain_corrected_high": ("RdBu_r", 0.6),
+    "acc_scrambled_corrected": ("RdBu_r", 1.0),
     "gain_low": ("RdBu_r", 0.6),
     "gain_high": ("RdBu_r", 0.6),
     "acc_realistic": ("RdBu_r", 1.0),
@@ -39,44 +43,69 @@ def _png(fig: Any) -> bytes:
     return buf.getvalue()
 
 
+def _finite(a: np.ndarray) -> np.ndarray:
+    return np.where(np.isfinite(a), a, np.nan)
+
+
+def _intervals(ax: Any, x: np.ndarray, low: np.ndarray, high: np.ndarray, colour: str) -> None:
+    """Each interval drawn from its own bounds (never clipped to its point: a bound read beside
+    the point shows as such); open ends (too few resamples) are not drawn."""
+    lo, hi = _finite(low), _finite(high)
+    ax.vlines(x, lo, hi, colors=colour, lw=1.2)
+    ax.hlines(np.concatenate([lo, hi]), np.concatenate([x, x]) - 0.06, np.concatenate([x, x]) + 0.06,
+              colors=colour, lw=1.2)
+
+
 def skill_png(curve: dict[str, Any]) -> bytes:
-    """ACC of both experiments (top) and the gain with its interval (bottom), by lead window."""
+    """ACC of both experiments (top) and the gain with its interval (bottom), by lead window.
+
+    The gain panel shows the gain corrected for other-year scrambled states when the run has
+    it (labelled so); the raw gain stays in the JSON and NetCDF forms.
+    """
     wins = curve["windows"]
     labels = [w["label"] for w in wins]
-    x = np.arange(len(wins))
+    x = np.arange(len(wins), dtype=float)
+    gain_key = "gain_corrected" if wins and wins[0].get("gain_corrected") is not None else "gain"
 
     def series(key: str, part: str) -> np.ndarray:
         return np.array([np.nan if w[key][part] is None else w[key][part] for w in wins], dtype=float)
 
     fig = _new_figure(7.0, 5.5)
     top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[3, 2])
+    scrambled_key = "acc_scrambled_corrected" if gain_key == "gain_corrected" else "acc_scrambled"
     for key, colour, name, dx in (
         ("acc_realistic", "tab:green", "realistic land starts", -0.08),
-        ("acc_scrambled", "tab:grey", "scrambled land starts", 0.08),
+        (scrambled_key, "tab:grey",
+         "scrambled land starts" + (" (corrected)" if key_is_corrected(scrambled_key) else ""), 0.08),
     ):
         v, lo, hi = series(key, "value"), series(key, "low"), series(key, "high")
-        # a biased bootstrap can put the point outside its interval: never draw negative bars
-        yerr = np.clip(np.nan_to_num([v - lo, hi - v]), 0.0, None)
-        top.errorbar(x + dx, v, yerr=yerr, fmt="o-", color=colour, capsize=3, label=name)
+        top.plot(x + dx, v, "o-", color=colour, label=name)
+        _intervals(top, x + dx, lo, hi, colour)
     top.axhline(0.0, color="black", lw=0.6)
     top.set_ylabel("anomaly correlation")
     top.legend(loc="best", fontsize=8)
     conf = round(100 * curve["confidence"])
     top.set_title(
         f"{curve['experiment']}: {curve['variable']}, region {curve['region']}\n"
-        f"{curve['aggregation']}, {conf}% year-block bootstrap intervals (B={curve['resamples']})",
+        f"{curve['aggregation']}, {conf}% year-block bootstrap intervals "
+        f"({curve.get('interval_method', '')}, B={curve['resamples']})",
         fontsize=9,
     )
-    g, lo, hi = series("gain", "value"), series("gain", "low"), series("gain", "high")
-    p = series("gain", "p_value")
+    g, lo, hi = series(gain_key, "value"), series(gain_key, "low"), series(gain_key, "high")
+    p = series(gain_key, "p_value")
     sig = p < significance_level(curve["confidence"])
-    bottom.bar(x, g, color=np.where(sig, "tab:blue", "lightsteelblue"), width=0.5)
-    bottom.errorbar(x, g, yerr=np.clip(np.nan_to_num([g - lo, hi - g]), 0.0, None), fmt="none", ecolor="black", capsize=3)
+    bottom.bar(x, np.nan_to_num(g), color=np.where(sig, "tab:blue", "lightsteelblue"), width=0.5)
+    _intervals(bottom, x, lo, hi, "black")
     bottom.axhline(0.0, color="black", lw=0.6)
-    bottom.set_ylabel("gain (realistic - scrambled)")
+    bottom.set_ylabel("gain, corrected" if gain_key == "gain_corrected" else "gain (realistic - scrambled)")
     bottom.set_xticks(x, labels)
-    bottom.set_xlabel("lead window (dark bars: interval excludes 0)")
+    note = "; corrected for scrambled states from other years" if gain_key == "gain_corrected" else ""
+    bottom.set_xlabel(f"lead window (dark bars: interval excludes 0{note})", fontsize=8)
     return _png(fig)
+
+
+def key_is_corrected(key: str) -> bool:
+    return key.endswith("_corrected")
 
 
 def map_png(maps: xr.Dataset, *, window: str, field: str) -> bytes:

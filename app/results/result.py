@@ -23,6 +23,7 @@ from app.cube.pipeline import (
     RegionAssessment,
     Resampling,
     RunOutput,
+    Scoring,
     assess_region,
     region_assessments,
 )
@@ -32,9 +33,11 @@ from app.errors import NotFoundError, ParameterError
 from app.provenance import code_version, history_line
 from app.results.contract import AGGREGATIONS, MAP_FIELDS, RESULT_FILES
 from app.results.curves import conditional_table, region_curves
+from app.stats.fisher import MIN_CELL_SAMPLES
+from app.stats.scramble import DEFAULT_SCRAMBLE
 
 #: p-values stay float64 so that "p < 1 - confidence" read from the file agrees with the bounds
-MAP_DTYPES: dict[str, type] = {"p_value": np.float64, "n_samples": np.int32}
+MAP_DTYPES: dict[str, type] = {"p_value": np.float64, "n_samples": np.int32, "n_years": np.int32}
 
 
 class ScoreResult:
@@ -73,6 +76,9 @@ class ScoreResult:
             "seed": boot.seed,
             "interval_method": boot.interval,
             "fdr_alpha": out.scoring.fdr_alpha,
+            "scramble": out.scoring.scramble,
+            "min_cell_samples": out.scoring.min_cell_samples,
+            "min_coverage": out.scoring.min_coverage,
             "options": options,
             "summary": out.summary,
             "windows": [w.to_dict() for w in out.windows],
@@ -101,12 +107,17 @@ class ScoreResult:
         return dict(self.meta["provenance"])
 
     @property
-    def resampling(self) -> Resampling:
-        """The run's bootstrap, to assess further regions on the same resampled years."""
+    def scoring(self) -> Scoring:
+        """The run's assessment settings, to assess further regions on the same resampled years."""
         m = self.meta
-        return Resampling(
-            resamples=int(m["resamples"]), seed=int(m["seed"]),
-            confidence=float(m["confidence"]), interval=str(m["interval_method"]),
+        return Scoring(
+            bootstrap=Resampling(
+                resamples=int(m["resamples"]), seed=int(m["seed"]),
+                confidence=float(m["confidence"]), interval=str(m["interval_method"]),
+            ),
+            fdr_alpha=float(m["fdr_alpha"]),
+            scramble=str(m.get("scramble", DEFAULT_SCRAMBLE)),
+            min_cell_samples=int(m.get("min_cell_samples", MIN_CELL_SAMPLES)),
         )
 
     def curve(self, region: str = "all", aggregation: str = "acc_of_region_mean") -> dict[str, Any]:
@@ -127,6 +138,11 @@ class ScoreResult:
     def map_field(self, *, window: str, field: str) -> xr.DataArray:
         if field not in MAP_FIELDS:
             raise NotFoundError(f"unknown map field {field!r}; choose one of {', '.join(MAP_FIELDS)}")
+        if field not in self.maps:
+            raise NotFoundError(
+                f"map field {field!r} is not in this result (scramble {self.meta.get('scramble')!r}: "
+                "nothing is corrected for independent scrambled states)"
+            )
         if window not in self.window_labels:
             raise NotFoundError(f"unknown lead window {window!r}; choose one of {', '.join(self.window_labels)}")
         return self.maps[field].sel(window=window)
@@ -136,7 +152,7 @@ class ScoreResult:
         cube, lat, lon = self.anomaly_cube()
         sig = self.maps["significant"].values.reshape(len(self.window_labels), -1).astype(bool)
         ra: RegionAssessment = assess_region(
-            cube, reg, lat=lat, lon=lon, bootstrap=self.resampling, significant=sig
+            cube, reg, lat=lat, lon=lon, scoring=self.scoring, significant=sig
         )
         if reg.id != region:
             raise NotFoundError(f"region {region!r} resolves to {reg.id!r}")
@@ -246,7 +262,16 @@ def build_maps(out: RunOutput, meta: dict[str, Any]) -> xr.Dataset:
         "gain_high": (grid(c.gain_high), f"upper bound of the {conf} year-block bootstrap interval of the gain"),
         "p_value": (grid(c.p_value), "two-sided year-block bootstrap p-value of gain = 0"),
         "n_samples": (grid(c.n_samples), "number of (year, start date) samples scored"),
+        "n_years": (grid(c.n_years), "number of years with a scored sample"),
     }
+    if out.scoring.scramble == "other_years":
+        note = "corrected for scrambled land states drawn from other years of the period"
+        variables.update({
+            "acc_scrambled_corrected": (grid(c.acc_scrambled_corrected), f"acc_scrambled {note}"),
+            "gain_corrected": (grid(c.gain_corrected), f"gain {note}: (n-1)/n x gain"),
+            "gain_corrected_low": (grid(c.gain_corrected_low), f"lower bound of the {conf} interval of gain_corrected"),
+            "gain_corrected_high": (grid(c.gain_corrected_high), f"upper bound of the {conf} interval of gain_corrected"),
+        })
     data = {
         name: xr.DataArray(
             values.astype(MAP_DTYPES.get(name, np.float32)),
@@ -320,6 +345,7 @@ def _global_attrs(meta: dict[str, Any], *, title: str) -> dict[str, Any]:
         "bootstrap_confidence": meta["confidence"],
         "interval_method": meta["interval_method"],
         "fdr_alpha": meta["fdr_alpha"],
+        "scramble": meta["scramble"],
         "comment": "Statistical evidence about hindcasts; not a guarantee of forecast quality.",
     }
     for role, sha in (prov.get("inputs_sha256") or {}).items():

@@ -17,6 +17,7 @@ from app.errors import ParameterError
 from app.results.comparison import comparison_json
 from app.results.result import ScoreResult
 from app.runs.options import ComparisonOptions
+from app.stats.scramble import DEFAULT_SCRAMBLE
 
 
 def compare_experiments(
@@ -39,7 +40,11 @@ def compare_experiments(
     region = resolve_region(options.region)
     weights = region_weights([region], lat, lon)
     boot = options.bootstrap.resampling().bootstrap(int(years.size))
-    cmp = compare_cubes(a, b, weights, boot)
+    cmp = compare_cubes(
+        a, b, weights, boot,
+        baseline_scramble=str(baseline.meta.get("scramble", DEFAULT_SCRAMBLE)),
+        candidate_scramble=str(candidate.meta.get("scramble", DEFAULT_SCRAMBLE)),
+    )
     header = {
         "baseline": baseline.meta["experiment"],
         "candidate": candidate.meta["experiment"],
@@ -53,6 +58,12 @@ def compare_experiments(
         "interval_method": options.bootstrap.interval,
         "n_years": int(years.size),
         "start_slots": slots,
+        "scramble": {
+            "baseline": baseline.meta.get("scramble", DEFAULT_SCRAMBLE),
+            "candidate": candidate.meta.get("scramble", DEFAULT_SCRAMBLE),
+        },
+        "sign_test": "one vote per year: the sign of the year's summed absolute-error difference "
+        "of the realistic runs; exact two-sided binomial p-value (DelSole and Tippett 2016)",
     }
     return comparison_json(cmp, baseline.windows, header=header)
 

@@ -29,12 +29,15 @@ from pydantic import (
     model_validator,
 )
 
+from app.cube.inputs import DEFAULT_MIN_COVERAGE
 from app.cube.pipeline import Resampling, Scoring
 from app.cube.regions import resolve_region
 from app.cube.windows import LeadWindow
 from app.errors import ParameterError
 from app.stats.fdr import DEFAULT_FDR_ALPHA
-from app.stats.intervals import IntervalMethod
+from app.stats.fisher import MIN_CELL_SAMPLES
+from app.stats.intervals import DEFAULT_INTERVAL_METHOD, IntervalMethod
+from app.stats.scramble import DEFAULT_SCRAMBLE, ScrambleDesign
 
 #: every bound a client can meet, written once
 MAX_RESAMPLES = 10_000
@@ -129,6 +132,14 @@ Seed = Annotated[int, Field(strict=True, json_schema_extra=_range(0, MAX_SEED)),
 LeadDay = Annotated[
     int, Field(strict=True, json_schema_extra=_range(1, MAX_LEAD_DAY)), AfterValidator(_int_in(1, MAX_LEAD_DAY))
 ]
+CellSamples = Annotated[
+    int, Field(strict=True, json_schema_extra=_range(4, 100_000)), AfterValidator(_int_in(4, 100_000))
+]
+Coverage = Annotated[
+    float,
+    Field(json_schema_extra=_range(0.0, 1.0, open_low=True)),
+    AfterValidator(_float_in(0.0, 1.0, open_low=True)),
+]
 Confidence = Annotated[
     float,
     Field(json_schema_extra=_range(MIN_CONFIDENCE, MAX_CONFIDENCE)),
@@ -202,7 +213,7 @@ class BootstrapOptions(_Strict):
     resamples: Resamples = 1000
     seed: Seed = 1234
     confidence: Confidence = 0.95
-    interval: IntervalMethod = "expanded"
+    interval: IntervalMethod = DEFAULT_INTERVAL_METHOD
 
     def resampling(self) -> Resampling:
         return Resampling(
@@ -238,6 +249,22 @@ class RunOptions(_Strict):
     leave_one_out: bool = Field(
         default=True, description="climatologies leave the verified year out"
     )
+    scramble: ScrambleDesign = Field(
+        default=DEFAULT_SCRAMBLE,
+        description="how the scrambled land states were drawn: 'other_years' (from other years "
+        "of the hindcast period: the gain is also reported corrected for the bias this causes) "
+        "or 'independent' (from outside the period, or synthetic: nothing is corrected)",
+    )
+    min_cell_samples: CellSamples = Field(
+        default=MIN_CELL_SAMPLES,
+        description="a cell is scored, and enters region means of ACC, with at least this many "
+        "(year, start) samples",
+    )
+    min_coverage: Coverage = Field(
+        default=DEFAULT_MIN_COVERAGE,
+        description="an observed lead window counts when at least this share of its days is "
+        "present",
+    )
 
     @field_validator("bootstrap", mode="before")
     @classmethod
@@ -265,6 +292,9 @@ class RunOptions(_Strict):
             fdr_alpha=self.fdr_alpha,
             equalize_members=self.equalize_members,
             leave_one_out=self.leave_one_out,
+            scramble=self.scramble,
+            min_cell_samples=self.min_cell_samples,
+            min_coverage=self.min_coverage,
         )
 
     def dump(self) -> dict[str, Any]:

@@ -75,5 +75,6 @@ def score_files(
         "seed": boot.seed,
         "resamples": boot.resamples,
         "interval_method": boot.interval,
+        "scramble": options.scramble,
     }
     return ScoreResult.from_run(out, experiment=experiment, provenance=provenance, options=options.dump())

@@ -66,6 +66,7 @@ def submit_experiment(
             variable=scoring.variable,
             lead_windows=scoring.lead_windows,
             regions=scoring.regions,
+            min_coverage=scoring.min_coverage,
         )
     except LandliftError as exc:
         raise _renamed(exc, names) from None

@@ -81,6 +81,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from app.stats.intervals import Interval, IntervalMethod, bootstrap_interval
+from app.stats.scramble import DEFAULT_SCRAMBLE, corrected_stratum_scrambled
 from app.stats.sums import MIN_SAMPLES, N_STATS, STAT_NAMES, yearly_sums
 
 FloatArray = NDArray[np.float64]
@@ -107,6 +108,8 @@ QUANTITIES: tuple[str, ...] = (
     "msess_realistic",
     "msess_scrambled",
     "msess_gain",
+    "acc_scrambled_corrected",
+    "gain_corrected",
 )
 
 #: target bytes of one block's resampled sums
@@ -364,17 +367,29 @@ def _clip_unit(r: FloatArray) -> FloatArray:
     return np.clip(r, -1.0, 1.0)
 
 
-def _scores(group_sums: FloatArray, *, group_axis: int) -> list[dict[str, FloatArray]]:
+def _scores(
+    group_sums: FloatArray, *, group_axis: int, scramble: str, period_years: FloatArray
+) -> list[dict[str, FloatArray]]:
     """Every quantity of :data:`QUANTITIES` for each stratum (groups 1, 2, ...). ``group_sums``
     has the groups (group 0 = all samples) on ``group_axis`` and the statistics right after it;
-    other axes pass through."""
+    other axes pass through. ``scramble`` and ``period_years`` (the years of the whole period,
+    broadcast over the columns) decide the other-year correction of the scrambled ACC
+    (:func:`app.stats.scramble.corrected_stratum_scrambled`)."""
     whole = np.take(group_sums, 0, axis=group_axis)
+    w = _stat_view(whole, group_axis)
     out = []
     for g in range(1, group_sums.shape[group_axis]):
         stratum = np.take(group_sums, g, axis=group_axis)
         r1, r2 = uncentred_correlations(stratum, stat_axis=group_axis)
         e1, e2 = linear_expectation(whole, stratum, stat_axis=group_axis)
         m1, m2 = msess_from_sums(stratum, stat_axis=group_axis)
+        st = _stat_view(stratum, group_axis)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = st[_K["n"]] / w[_K["n"]]
+        r2c = corrected_stratum_scrambled(
+            st[_K["x1y"]], st[_K["x2y"]], st[_K["x2x2"]], st[_K["yy"]],
+            reference_x2x2=share * w[_K["x2x2"]], n_years=period_years, design=scramble,
+        )
         out.append(
             {
                 "acc_realistic": r1,
@@ -388,6 +403,8 @@ def _scores(group_sums: FloatArray, *, group_axis: int) -> list[dict[str, FloatA
                 "msess_realistic": m1.value,
                 "msess_scrambled": m2.value,
                 "msess_gain": m1.value - m2.value,
+                "acc_scrambled_corrected": r2c,
+                "gain_corrected": r1 - r2c,
             }
         )
     return out
@@ -441,11 +458,13 @@ def stratum_interval(
     draws: FloatArray,
     n_years: FloatArray,
     *,
+    point: FloatArray | None = None,
     confidence: float = 0.95,
     method: IntervalMethod = "expanded",
 ) -> Interval:
     """:func:`app.stats.intervals.bootstrap_interval` of ``draws`` ``(B, n_columns)`` with each
-    column's own number of blocks ``n_years`` ``(n_columns,)``; NaN where it is below 2."""
+    column's own number of blocks ``n_years`` ``(n_columns,)``; NaN where it is below 2.
+    ``point`` ``(n_columns,)`` is the full-sample value (needed by point-centred methods)."""
     d = np.asarray(draws, dtype=np.float64)
     ny = np.asarray(n_years, dtype=np.float64).reshape(-1)
     if d.ndim != 2 or d.shape[1] != ny.size:
@@ -453,7 +472,8 @@ def stratum_interval(
     low, high, p = (np.full(ny.size, np.nan) for _ in range(3))
     for n in np.unique(ny[np.isfinite(ny) & (ny >= 2)]):
         cols = np.flatnonzero(ny == n)
-        iv = bootstrap_interval(d[:, cols], confidence=confidence, n_blocks=int(n), method=method)
+        pt = None if point is None else np.asarray(point, dtype=np.float64).reshape(-1)[cols]
+        iv = bootstrap_interval(d[:, cols], point=pt, confidence=confidence, n_blocks=int(n), method=method)
         low[cols], high[cols], p[cols] = iv.low, iv.high, iv.p_value
     return Interval(low=low, high=high, p_value=p)
 
@@ -475,6 +495,7 @@ def conditional_gain(
     quantities: tuple[str, ...] = QUANTITIES,
     keep_draws: bool = False,
     block: int | None = None,
+    scramble: str = DEFAULT_SCRAMBLE,
 ) -> dict[str, StratumEstimate]:
     """Scores of every stratum of :data:`STRATA` with intervals from the year-block resamples.
 
@@ -485,7 +506,9 @@ def conditional_gain(
     (:func:`app.stats.resample.year_block_counts`), shared with every other interval of the run.
     Each resample's scores come from ``counts @ per-year sums``, in blocks of columns.
     ``quantities``: which of :data:`QUANTITIES` get intervals (and draws with ``keep_draws``);
-    the point values are always all there.
+    the point values are always all there. ``scramble`` is the design of the scrambled land
+    states (:mod:`app.stats.scramble`): ``acc_scrambled_corrected`` / ``gain_corrected`` carry
+    the other-year correction (equal to the raw ones under ``"independent"``).
     """
     x1 = np.asarray(realistic, dtype=np.float64)
     counts = np.asarray(counts, dtype=np.float64)
@@ -502,8 +525,8 @@ def conditional_gain(
     flat = sums.reshape(n_years, n_groups, N_COND_STATS, -1)
     n_cols, n_res = flat.shape[3], counts.shape[0]
     totals = flat.sum(axis=0)  # (G, K, C)
-    point = _scores(totals, group_axis=0)
     ny = (flat[:, :, 0] > 0).sum(axis=0).astype(np.float64)  # (G, C)
+    point = _scores(totals, group_axis=0, scramble=scramble, period_years=ny[0])
 
     n_strata = n_groups - 1
     iv_parts: list[dict[str, list[Interval]]] = [{q: [] for q in quantities} for _ in range(n_strata)]
@@ -516,11 +539,14 @@ def conditional_gain(
         width = stop - start
         part = np.ascontiguousarray(flat[..., start:stop]).reshape(n_years, -1)
         res = (counts @ part).reshape(n_res, n_groups, N_COND_STATS, width)
-        scores = _scores(res, group_axis=1)
+        scores = _scores(res, group_axis=1, scramble=scramble, period_years=ny[0, start:stop])
         for s in range(n_strata):
             for q in quantities:
                 iv_parts[s][q].append(
-                    stratum_interval(scores[s][q], ny[s + 1, start:stop], confidence=confidence, method=method)
+                    stratum_interval(
+                        scores[s][q], ny[s + 1, start:stop], point=point[s][q][start:stop],
+                        confidence=confidence, method=method,
+                    )
                 )
                 if kept is not None:
                     kept[s][q][:, start:stop] = scores[s][q]

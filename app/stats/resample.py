@@ -11,6 +11,11 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
+#: fewest year-blocks a bootstrap is run on: n blocks drawn with replacement give C(2n-1, n)
+#: distinct resamples (462 at n = 6, 1716 at n = 7), so from 7 years on the default B = 1000 draws
+#: are not mostly repeats of each other; intervals are calibrated for 15-30 years (README)
+MIN_YEAR_BLOCKS = 7
+
 
 def year_block_counts(n_years: int, *, resamples: int, seed: int) -> NDArray[np.float64]:
     """Seeded ``(resamples, n_years)`` counts of years drawn with replacement; rows sum to n_years."""

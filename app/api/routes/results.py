@@ -211,7 +211,7 @@ def maps(
             field=field,
             choices=list(MAP_FIELDS),
         )
-    chosen = field or ("gain" if format == "png" else "all")
+    chosen = field or ("gain" if format == "png" else "all")  # the raw gain unless asked
     digest = _digest(store, experiment_id)
     key = f"{digest}:map:{window}:{chosen}.{EXTENSION[format]}"
 
@@ -222,6 +222,12 @@ def maps(
                 f"unknown lead window {window!r}; choose one of {', '.join(result.window_labels)}",
                 window=window,
                 choices=result.window_labels,
+            )
+        if chosen != "all" and chosen not in result.maps:
+            raise NotFoundError(
+                f"map field {chosen!r} is not in this result: it is written only for "
+                f"scramble 'other_years' (this run: {result.meta.get('scramble')!r})",
+                field=chosen,
             )
         if format == "png":
             from app.results.figures import map_png

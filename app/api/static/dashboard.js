@@ -105,6 +105,32 @@
     const img = document.getElementById("skill");
     img.src = URL.createObjectURL(await resp.blob());
     links.textContent = "Skill curve: " + base + "?format=json | csv | png";
+    showHeadline(base);
+  }
+
+  function signed(x) {
+    return x === null || x === undefined ? "n/a" : (x >= 0 ? "+" : "") + x.toFixed(2);
+  }
+
+  // the headline: weeks 3-4 (else the last window), the corrected gain when the run has one
+  async function showHeadline(base) {
+    const line = document.getElementById("headline");
+    const resp = await fetch(base, { headers: headers() });
+    if (!resp.ok) {
+      line.textContent = "";
+      return;
+    }
+    const curve = await resp.json();
+    const w = curve.windows.find((x) => x.label === "weeks 3-4") || curve.windows[curve.windows.length - 1];
+    if (!w) return;
+    const corrected = w.gain_corrected !== undefined && w.gain_corrected !== null;
+    const g = corrected ? w.gain_corrected : w.gain;
+    const p = g.p_value === null ? "n/a" : g.p_value.toFixed(3);
+    line.textContent =
+      (corrected ? "Gain, corrected for scrambled states from other years" : "Gain") +
+      ", " + w.label + ", region " + curve.region + ": " + signed(g.value) +
+      " [" + signed(g.low) + ", " + signed(g.high) + "], p " + p +
+      " (" + Math.round(100 * curve.confidence) + "% year-block bootstrap interval)";
   }
 
   document.getElementById("token-form").addEventListener("submit", (ev) => {
