@@ -13,6 +13,7 @@ from app.api.logs import log_request
 from app.api.metrics import MeasureMiddleware, Metrics
 from app.api.routes import comparisons, datasets, experiments, ops, results, tokens
 from app.api.routes.ops import STATIC_DIR
+from app.api.schemas import error_responses
 from app.provenance import code_version
 from app.settings import Settings
 from app.store import Store, job_rows
@@ -53,7 +54,8 @@ def create_app(settings: Settings, *, store: Store | None = None) -> FastAPI:
 
     install_error_handlers(app)
     app.add_middleware(MeasureMiddleware, metrics=metrics, log_request=log_request)
-    for module in (ops, datasets, experiments, results, comparisons, tokens):
-        app.include_router(module.router)
+    app.include_router(ops.router, responses=error_responses(400, 503))
+    for module in (datasets, experiments, results, comparisons, tokens):
+        app.include_router(module.router, responses=error_responses())
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
     return app

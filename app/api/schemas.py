@@ -228,3 +228,25 @@ class ConditionalTable(_Open):
     region: str
     available: bool
     strata: list[Stratum]
+
+
+#: what an error answer can be, on every /v1 route (one body: ErrorOut); the OpenAPI document
+#: declares them so that clients and API fuzzers know every status a route returns
+ERROR_STATUSES: dict[int, str] = {
+    400: "malformed request (body not JSON, broken multipart)",
+    401: "no token, or an unknown or revoked one",
+    403: "the token's scope is too small",
+    404: "an unknown id, region, window or field",
+    409: "conflicts with stored state, or the result is not ready yet",
+    413: "the body or upload is larger than its limit",
+    415: "the wrong content type",
+    422: "invalid parameters or data (the message names them)",
+    429: "too many requests of this kind at once (see Retry-After)",
+    503: "the service is busy or its database does not answer (see Retry-After)",
+}
+
+
+def error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
+    """``responses=`` entries for these statuses (all of them when none is named)."""
+    chosen = statuses or tuple(ERROR_STATUSES)
+    return {s: {"model": ErrorOut, "description": ERROR_STATUSES[s]} for s in chosen}

@@ -32,7 +32,7 @@ def _zarr_digest(root: Path) -> str:
 
 @pytest.fixture
 def roots(tmp_path: Path, sample_files: dict[str, Path]) -> Path:
-    root = tmp_path / "roots"
+    root = tmp_path / "registered"
     root.mkdir()
     for slot in ("realistic", "scrambled", "land_state"):
         (root / f"{slot}.nc").write_bytes(sample_files[slot].read_bytes())

@@ -123,7 +123,7 @@ def test_killed_worker_is_taken_over_with_the_same_numbers(
     tmp_path: Path,
 ) -> None:
     exp = experiment_rows.create_experiment(
-        store, name="killed", options=OPTIONS.validate().dump(), **ingest_sample()
+        store, name="killed", options=OPTIONS.dump(), **ingest_sample()
     )
     job_id = exp["job"]["id"]
     events = tmp_path / "events.log"

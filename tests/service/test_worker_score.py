@@ -57,7 +57,7 @@ def test_score_job_gives_the_engine_numbers(
 ) -> None:
     ids = ingest_sample()
     exp = experiment_rows.create_experiment(
-        store, name="sample", options=OPTIONS.validate().dump(), **ids
+        store, name="sample", options=OPTIONS.dump(), **ids
     )
     assert Worker(store).run(drain=True) == 1
     job = job_rows.get_job(store, exp["job"]["id"])
@@ -101,19 +101,24 @@ def test_progress_is_reported_in_order(
     assert len(seen) >= 3 and seen == sorted(seen) and 0.0 < seen[-2] < 1.0
 
 
-def test_bad_options_fail_at_once_with_the_error(
+def test_options_are_checked_once_and_reloaded_unchanged(
     store: Store, ingest_sample: Callable[..., dict[str, str]]
 ) -> None:
+    """Bad options never reach the queue (the run layer checks them when the request is
+    parsed); a job reloads the stored dump as it was, without a second check."""
+    from app.errors import ParameterError
+    from app.runs.submission import submit_experiment
+
     ids = ingest_sample(("realistic", "scrambled", "observations"))
-    exp = experiment_rows.create_experiment(
-        store, name="bad", options={**OPTIONS.dump(), "resamples": 0}, **ids
-    )
-    Worker(store).run(drain=True)
-    job = job_rows.get_job(store, exp["job"]["id"])
-    assert job["status"] == "failed" and job["attempts"] == 1
-    assert job["error"].startswith("invalid_parameter: ") and "resamples" in job["error"]
-    with pytest.raises(ResultNotReady):
-        experiment_rows.result_files(store, exp["id"])
+    with pytest.raises(ParameterError, match="bootstrap.resamples: must be an integer in 1..10000, got 0"):
+        submit_experiment(store, name="bad", datasets=ids, options=run_options(resamples=0))
+    with store.db.read() as session:
+        assert session.query(Job).count() == 0
+    exp = submit_experiment(store, name="good", datasets=ids, options=OPTIONS)
+    with store.db.read() as session:
+        payload = session.get(Job, exp["job"]["id"]).payload  # type: ignore[union-attr]
+    assert RunOptions.reload(payload["options"]) == OPTIONS
+    assert RunOptions.reload(payload["options"]).scoring() == OPTIONS.scoring()
 
 
 def test_unexpected_errors_are_retried_then_failed(

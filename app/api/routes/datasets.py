@@ -47,7 +47,7 @@ def _answer(response: Response, dataset: dict[str, Any], created: bool) -> Datas
     status_code=201,
     response_model=DatasetOut,
     openapi_extra=_UPLOAD_DOC,
-    responses={200: {"description": "the same bytes were uploaded before"}},
+    responses={200: {"model": DatasetOut, "description": "the same bytes were uploaded before"}},
 )
 async def upload_dataset(
     request: Request, response: Response, store: StoreDep, settings: SettingsDep, _: WriteAccess
@@ -73,7 +73,7 @@ async def upload_dataset(
     "/register",
     status_code=201,
     response_model=DatasetOut,
-    responses={200: {"description": "already registered (same content, same role)"}},
+    responses={200: {"model": DatasetOut, "description": "already registered (same content, same role)"}},
 )
 def register_dataset(
     body: Annotated[RegisterIn, Body()],

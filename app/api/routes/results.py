@@ -187,6 +187,7 @@ async def skill(
 
 @router.get(
     "/v1/experiments/{experiment_id}/maps/{window}",
+    response_class=Response,
     responses={
         200: {"content": {"image/png": {}, "application/x-netcdf": {}}},
         304: {"description": "not modified"},
