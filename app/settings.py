@@ -70,6 +70,40 @@ class Settings(BaseSettings):
     validation_memory_bytes: int = Field(
         default=2 * 1024**3, description="Address-space limit of the upload validation process."
     )
+    validation_cpu_seconds: float = Field(
+        default=120.0, description="CPU-time limit (RLIMIT_CPU) of the validation process."
+    )
+    max_concurrent_validations: int = Field(
+        default=2,
+        description="Validations (upload, register) running at once; more wait briefly, then "
+        "get 503 with Retry-After.",
+    )
+    max_decompressed_bytes: int = Field(
+        default=64 * 1024**3,
+        description="Largest declared (uncompressed) size of a dataset's variables; a file that "
+        "declares more is refused before its data are read.",
+    )
+    max_register_bytes: int = Field(
+        default=64 * 1024**3,
+        description="Largest file or Zarr store that POST /v1/datasets/register hashes and admits.",
+    )
+    max_json_body_bytes: int = Field(
+        default=1024**2, description="Largest JSON request body (413 beyond)."
+    )
+    derived_cache_items: int = Field(
+        default=512, description="Derived result files (rendered curves, maps) kept, least "
+        "recently used dropped first."
+    )
+    derived_cache_bytes: int = Field(
+        default=256 * 1024**2, description="Bytes of derived result files kept (LRU)."
+    )
+    temp_max_age_seconds: float = Field(
+        default=3600.0, description="Temporary upload files older than this are swept (at start "
+        "and periodically); a live upload rewrites its file continuously."
+    )
+    retry_after_seconds: int = Field(
+        default=5, description="Retry-After of 503 and 429 answers."
+    )
     validation_fault: Literal["", "abort", "segfault", "sleep", "allocate"] = Field(
         default="",
         description="Test hook: make every validation child crash, hang or over-allocate "
@@ -91,7 +125,10 @@ class Settings(BaseSettings):
     def _resolve_roots(cls, value: list[Path]) -> list[Path]:
         return [p.expanduser().resolve() for p in value]
 
-    @field_validator("max_upload_bytes", "validation_memory_bytes", mode="before")
+    @field_validator(
+        "max_upload_bytes", "validation_memory_bytes", "max_decompressed_bytes",
+        "max_register_bytes", "max_json_body_bytes", "derived_cache_bytes", mode="before",
+    )
     @classmethod
     def _parse_required_size(cls, value: Any) -> Any:
         if isinstance(value, str | float) and not isinstance(value, bool):
@@ -116,7 +153,10 @@ class Settings(BaseSettings):
 
     @model_validator(mode="after")
     def _check(self) -> Settings:
-        for name in ("max_upload_bytes", "validation_memory_bytes", "memory_budget"):
+        for name in (
+            "max_upload_bytes", "validation_memory_bytes", "memory_budget", "max_decompressed_bytes",
+            "max_register_bytes", "max_json_body_bytes", "derived_cache_bytes",
+        ):
             size = getattr(self, name)
             if size is not None and size <= 0:
                 raise ValueError(f"{name} = {size} must be a positive number of bytes")
@@ -130,6 +170,8 @@ class Settings(BaseSettings):
             "heartbeat_seconds",
             "poll_seconds",
             "validation_timeout_seconds",
+            "validation_cpu_seconds",
+            "temp_max_age_seconds",
         ):
             if getattr(self, name) <= 0:
                 raise ValueError(f"{name} = {getattr(self, name)} must be > 0")
@@ -142,6 +184,9 @@ class Settings(BaseSettings):
             )
         if self.max_attempts < 1:
             raise ValueError(f"max_attempts = {self.max_attempts} must be >= 1")
+        for name in ("max_concurrent_validations", "derived_cache_items", "retry_after_seconds"):
+            if getattr(self, name) < 1:
+                raise ValueError(f"{name} = {getattr(self, name)} must be >= 1")
         if self.database_url is None:
             path = (self.data_dir / "landlift.db").resolve()
             object.__setattr__(self, "database_url", f"sqlite:///{path}")
