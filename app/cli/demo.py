@@ -92,7 +92,7 @@ def run_demo(*, data_dir: Path, resamples: int = 1000) -> int:
         f"  dashboard  {base}/   (paste the token)\n"
         f"  curve      curl -H 'Authorization: Bearer TOKEN' '{base}/v1/experiments/{exp['id']}/skill'\n"
         f"  figure     {base}/v1/experiments/{exp['id']}/skill?format=png\n"
-        f"  gain map   {base}/v1/experiments/{exp['id']}/maps/week%203?field=gain&format=png\n"
+        f"  gain map   {base}/v1/experiments/{exp['id']}/maps/weeks%203-4?field=gain_corrected&format=png\n"
         f"  API docs   {base}/docs"
     )
     sys.stdout.flush()
