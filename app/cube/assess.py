@@ -234,8 +234,8 @@ def block_stats(
         "n": n, "ny": ny, "r2c": r2c, "clow": corrected_iv.low, "chigh": corrected_iv.high,
     }
     maps = {k: v.reshape(W, m) for k, v in maps.items()}
-    # each resample's own sample counts weight its cells (missing years drop out with them)
-    n_draws = (boot.counts @ flat[:, 0, :]).reshape(B, W, m)
+    # cells keep their full-sample weights in every resample (the weights are part of the
+    # estimator); a cell not scored has weight 0 throughout
     R = weights.shape[0]
     z_point, w_point = np.zeros((3, R, W)), np.zeros((3, R, W))
     z_draws, w_draws = np.zeros((3, R, B, W)), np.zeros((3, R, B, W))
@@ -245,8 +245,7 @@ def block_stats(
             fisher_z(pt).reshape(W, m), n_point, weights, min_samples=boot.min_cell_samples
         )
         z_draws[e], w_draws[e] = weighted_z_sums(
-            fisher_z(dr).reshape(B, W, m), np.where(n_point > 0, n_draws, 0.0), weights,
-            min_samples=boot.min_cell_samples,
+            fisher_z(dr).reshape(B, W, m), n_point, weights, min_samples=boot.min_cell_samples
         )
     return BlockStats(np.asarray(cells), maps, z_point, w_point, z_draws, w_draws)
 

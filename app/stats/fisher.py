@@ -43,7 +43,8 @@ MIN_CELL_SAMPLES = 10
 
 def fisher_z(r: ArrayLike) -> FloatArray:
     """``arctanh(r)`` with ``r`` clipped to ``[-Z_CLIP, Z_CLIP]``; NaN stays NaN."""
-    return np.arctanh(np.clip(np.asarray(r, dtype=np.float64), -Z_CLIP, Z_CLIP))
+    out = np.clip(np.asarray(r, dtype=np.float64), -Z_CLIP, Z_CLIP)
+    return np.arctanh(out, out=out)
 
 
 def weighted_z_sums(
@@ -61,6 +62,7 @@ def weighted_z_sums(
     n_cells)``. Returns ``sum_c w_c z_c`` and ``sum_c w_c`` over finite z only, each shaped
     ``(n_regions, ...)``, with ``w_c = area_weight * (n_c - 3)`` for ``n_c >= min_samples`` and 0
     otherwise. Add them up over blocks of cells, then ``tanh(num / den)`` (NaN where den = 0).
+    The sums over cells are matrix products (BLAS).
     """
     zz = np.asarray(z, dtype=np.float64)
     n = np.broadcast_to(np.asarray(n_samples, dtype=np.float64), zz.shape)
@@ -69,8 +71,45 @@ def weighted_z_sums(
         raise ValueError(f"area weights must be (n_regions, {zz.shape[-1]}), got shape {a.shape}")
     if min_samples < 4:
         raise ValueError(f"min_samples must be >= 4 (weights n - 3 > 0), got {min_samples}")
+    n_given = np.asarray(n_samples, dtype=np.float64)
+    if zz.ndim >= 2 and n_given.ndim <= 2:
+        return _fixed_weight_sums(zz, n_given, a, min_samples=min_samples)
     finite = np.isfinite(zz)
-    inverse_variance = np.where(finite & np.isfinite(n) & (n >= min_samples), n - 3.0, 0.0)
-    num = np.einsum("...c,rc->r...", np.where(finite, zz, 0.0) * inverse_variance, a)
-    den = np.einsum("...c,rc->r...", inverse_variance, a)
-    return num, den
+    keep = finite & (n >= min_samples)  # NaN counts compare False
+    inverse_variance = np.where(keep, n - 3.0, 0.0)
+    weighted = np.where(keep, zz, 0.0)
+    weighted *= inverse_variance
+    lead = zz.shape[:-1]
+    cells = zz.shape[-1]
+    num = weighted.reshape(-1, cells) @ a.T  # (prod(lead), R)
+    den = inverse_variance.reshape(-1, cells) @ a.T
+    return np.moveaxis(num.reshape(lead + (a.shape[0],)), -1, 0), np.moveaxis(
+        den.reshape(lead + (a.shape[0],)), -1, 0
+    )
+
+
+def _fixed_weight_sums(
+    zz: FloatArray, n: FloatArray, a: FloatArray, *, min_samples: int
+) -> tuple[FloatArray, FloatArray]:
+    """The same sums when the sample counts do not vary over the leading axes (one count per
+    window and cell, the same in every resample): the weights fold into one ``(R, W, m)`` matrix
+    and each window's sums are one BLAS product over the leading (resample) rows."""
+    W, m = zz.shape[-2], zz.shape[-1]
+    n2 = np.broadcast_to(n, (W, m))
+    iv = np.where(np.isfinite(n2) & (n2 >= min_samples), n2 - 3.0, 0.0)  # (W, m)
+    weights = iv[None, :, :] * a[:, None, :]  # (R, W, m)
+    lead = zz.shape[:-2]
+    rows = zz.reshape(-1, W, m)
+    finite = np.isfinite(rows)
+    all_finite = bool(finite.all())
+    values = rows if all_finite else np.where(finite, rows, 0.0)
+    R = a.shape[0]
+    num = np.empty((R, rows.shape[0], W))
+    den = np.empty((R, rows.shape[0], W))
+    for w in range(W):
+        num[:, :, w] = (values[:, w, :] @ weights[:, w, :].T).T
+        if all_finite:
+            den[:, :, w] = weights[:, w, :].sum(axis=1)[:, None]
+        else:
+            den[:, :, w] = (finite[:, w, :].astype(np.float64) @ weights[:, w, :].T).T
+    return num.reshape((R,) + lead + (W,)), den.reshape((R,) + lead + (W,))
