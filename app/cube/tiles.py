@@ -66,7 +66,9 @@ def task_budget(memory_budget: int | None, *, workers: int) -> int:
 
 def block_size(budget: int, *, resamples: int, n_windows: int) -> int:
     """Cells bootstrapped together: BLOCK_CELLS, fewer when their draws would not fit ``budget``."""
-    return max(1, min(BLOCK_CELLS, budget // max(1, 160 * resamples * n_windows)))
+    # about 28 float64 (resample x window) arrays per cell are alive in block_stats: both ACCs,
+    # the gain, the corrected scrambled ACC, their Fisher z and the partition copies
+    return max(1, min(BLOCK_CELLS, budget // max(1, 224 * resamples * n_windows)))
 
 
 @dataclass(frozen=True)
